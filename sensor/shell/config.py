@@ -1,0 +1,414 @@
+"""The site file: one TOML file that describes a plant's crystallizers to sigmatrack.
+
+:func:`load_site_file` reads it (stdlib ``tomllib``) into the frozen dataclasses below and
+refuses, naming the file and the key, anything unknown, missing, mistyped or impossible. Keys
+carry their units in their names (``_c``, ``_k``, ``_s``, ``_kg``, ``_k_per_min``, ...); the code
+that builds the science objects from these converts them to SI once. ``config/demo-site.toml``
+documents every key with a comment; ``tests/shell/test_config.py`` keeps the two in step.
+
+The optional ``[simulator]`` table is kept raw here and read by the plant simulator, which
+owns its schema: the estimator never sees it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+from sensor.errors import SiteConfigError
+from sensor.shell.tomlschema import (
+    Invalid,
+    ascending_pair,
+    at_least,
+    check,
+    non_negative,
+    open_fraction,
+    positive,
+    read_table,
+)
+
+BATCH_PHASES = (
+    "idle",
+    "heat",
+    "dissolve",
+    "cool-to-seed",
+    "seed",
+    "seed-hold",
+    "controlled-cooling",
+    "final-hold",
+    "discharge",
+)
+"""The batch phases sigmatrack knows, in recipe order; a unit's ``phase_values`` maps the DCS's
+phase tag values onto them."""
+
+SIGNALS = (
+    "temp",
+    "jacket_temp",
+    "jacket_setpoint",
+    "conc",
+    "phase",
+    "batch_id",
+    "permissive",
+    "remote_setpoint",
+    "heartbeat",
+)
+"""The signals a unit's ``tags`` table may name. ``temp``, ``jacket_temp`` and ``conc`` are
+required; the rest are needed for batch tracking and for writing to the DCS."""
+
+REQUIRED_SIGNALS = ("temp", "jacket_temp", "conc")
+WRITE_SIGNALS = ("permissive", "remote_setpoint", "heartbeat")
+
+ConcUnitName = Literal["kg/kg", "g/100g", "mass-fraction", "mole-fraction", "g/L"]
+"""Concentration units a site file may name (``sensor.units.CONCENTRATION_UNIT_NAMES``)."""
+
+
+@dataclass(frozen=True)
+class SiteSection:
+    name: str
+    description: str = ""
+
+
+@dataclass(frozen=True)
+class CompoundConfig:
+    name: str
+    solvent: str
+    crystal_density_kg_per_m3: float = field(metadata=check(positive))
+    volume_shape_factor: float = field(metadata=check(positive))
+    molar_mass_g_per_mol: float | None = field(default=None, metadata=check(positive))
+    solvent_molar_mass_g_per_mol: float | None = field(default=None, metadata=check(positive))
+    melting_temp_c: float | None = None
+    enthalpy_of_fusion_kj_per_mol: float | None = field(default=None, metadata=check(positive))
+
+    def __post_init__(self) -> None:
+        if (self.molar_mass_g_per_mol is None) != (self.solvent_molar_mass_g_per_mol is None):
+            key = (
+                "molar_mass_g_per_mol"
+                if self.molar_mass_g_per_mol is None
+                else ("solvent_molar_mass_g_per_mol")
+            )
+            raise Invalid(key, "give both molar masses (solute and solvent) or neither")
+        if self.volume_shape_factor > 0.5236:
+            raise Invalid(
+                "volume_shape_factor",
+                f"cannot exceed pi/6 = 0.5236 (a sphere, size = diameter); got "
+                f"{self.volume_shape_factor}",
+            )
+
+
+@dataclass(frozen=True)
+class SolubilityConfig:
+    data: Path
+    conc_unit: ConcUnitName
+    model: Literal["auto", "vant-hoff", "apelblat", "lambda-h", "polynomial"] = "auto"
+    polynomial_degree: int = field(default=2, metadata=check(at_least(1)))
+    extrapolation_margin_k: float = field(default=5.0, metadata=check(non_negative))
+
+    def __post_init__(self) -> None:
+        if self.polynomial_degree > 5:
+            raise Invalid("polynomial_degree", f"must be 1 to 5; got {self.polynomial_degree}")
+
+
+@dataclass(frozen=True)
+class MetastableConfig:
+    method: Literal["nyvlt", "fixed-width"]
+    data: Path | None = None
+    conc_unit: ConcUnitName | None = None
+    fixed_width_k: float | None = field(default=None, metadata=check(positive))
+    fixed_width_std_k: float = field(default=0.0, metadata=check(non_negative))
+
+    def __post_init__(self) -> None:
+        if self.method == "nyvlt":
+            for key in ("data", "conc_unit"):
+                if getattr(self, key) is None:
+                    raise Invalid(key, "needed when method = 'nyvlt' (the cloud-point data)")
+        if self.method == "fixed-width" and self.fixed_width_k is None:
+            raise Invalid("fixed_width_k", "needed when method = 'fixed-width'")
+
+
+@dataclass(frozen=True)
+class ModelConfig:
+    """Kinetics of the soft sensor's estimation model (moments model)."""
+
+    growth_rate_constant_m_per_s: float = field(metadata=check(positive))
+    growth_order: float = field(metadata=check(positive))
+    nucleation_rate_constant_per_kg_s: float = field(metadata=check(non_negative))
+    nucleation_order: float = field(metadata=check(positive))
+    nucleation_solids_exponent: float = field(default=1.0, metadata=check(non_negative))
+    dissolution_rate_constant_m_per_s: float = field(default=0.0, metadata=check(non_negative))
+    growth_rel_std: float = field(default=0.3, metadata=check(non_negative))
+    nucleation_rel_std: float = field(default=0.5, metadata=check(non_negative))
+    estimate_growth_scale: bool = True
+
+
+@dataclass(frozen=True)
+class FilterConfig:
+    kind: Literal["ukf", "ekf"] = "ukf"
+    gate_probability: float = field(default=0.999, metadata=check(open_fraction))
+    nis_window: int = field(default=30, metadata=check(at_least(2)))
+    nis_probability: float = field(default=0.95, metadata=check(open_fraction))
+    temp_process_std_k_per_sqrt_s: float = field(default=2e-3, metadata=check(positive))
+    conc_process_std_per_sqrt_s: float = field(default=2e-6, metadata=check(positive))
+    bias_random_walk_std_per_sqrt_s: float = field(default=1e-6, metadata=check(non_negative))
+    growth_scale_random_walk_std_per_sqrt_s: float = field(
+        default=1e-4, metadata=check(non_negative)
+    )
+    initial_temp_std_k: float = field(default=0.5, metadata=check(positive))
+    initial_conc_rel_std: float = field(default=0.05, metadata=check(positive))
+    initial_bias_std: float = field(default=0.005, metadata=check(positive))
+
+
+@dataclass(frozen=True)
+class ValidationConfig:
+    stale_after_s: float = field(default=120.0, metadata=check(positive))
+    frozen_after_s: float = field(default=300.0, metadata=check(positive))
+    temp_range_c: tuple[float, float] = field(
+        default=(-30.0, 150.0), metadata=check(ascending_pair)
+    )
+    max_temp_rate_k_per_min: float = field(default=10.0, metadata=check(positive))
+    spike_threshold_std: float = field(default=6.0, metadata=check(positive))
+
+
+@dataclass(frozen=True)
+class ControllerConfig:
+    target_fraction_of_zone: float = field(default=0.5, metadata=check(open_fraction))
+    confidence_k: float = field(default=2.0, metadata=check(non_negative))
+    horizon_s: float = field(default=1200.0, metadata=check(positive))
+    update_interval_s: float = field(default=30.0, metadata=check(positive))
+    low_sigma_fraction: float = field(default=0.15, metadata=check(open_fraction))
+    fallback: Literal["hold-rate", "recipe"] = "recipe"
+
+
+@dataclass(frozen=True)
+class GuardConfig:
+    setpoint_range_c: tuple[float, float] = field(metadata=check(ascending_pair))
+    final_temp_c: float
+    max_cooling_rate_k_per_min: float = field(metadata=check(positive))
+    max_heating_rate_k_per_min: float = field(default=0.0, metadata=check(non_negative))
+    max_step_k: float = field(default=0.5, metadata=check(positive))
+    proposal_phases: tuple[str, ...] = ("controlled-cooling",)
+    heartbeat_period_s: float = field(default=10.0, metadata=check(positive))
+
+    def __post_init__(self) -> None:
+        lo, hi = self.setpoint_range_c
+        if not lo <= self.final_temp_c <= hi:
+            raise Invalid("final_temp_c", f"must lie inside setpoint_range_c {[lo, hi]}")
+        for i, phase in enumerate(self.proposal_phases):
+            if phase not in BATCH_PHASES:
+                raise Invalid(f"proposal_phases[{i}]", f"unknown phase {phase!r}")
+
+
+@dataclass(frozen=True)
+class AlarmsConfig:
+    sigma_high_fraction: float = field(default=0.8, metadata=check(open_fraction))
+    on_delay_s: float = field(default=30.0, metadata=check(non_negative))
+    off_delay_s: float = field(default=60.0, metadata=check(non_negative))
+    deadband_fraction: float = field(default=0.05, metadata=check(open_fraction))
+    shelve_max_s: float = field(default=8 * 3600.0, metadata=check(positive))
+
+
+@dataclass(frozen=True)
+class StoreConfig:
+    url: str = "sqlite:///sigmatrack.db"
+    batch_rows: int = field(default=1000, metadata=check(at_least(1)))
+    flush_interval_s: float = field(default=1.0, metadata=check(positive))
+    queue_dir: Path | None = None
+    queue_max_rows: int = field(default=5_000_000, metadata=check(at_least(1)))
+
+
+@dataclass(frozen=True)
+class OpcUaServerConfig:
+    endpoint: str = "opc.tcp://127.0.0.1:4841/sigmatrack"
+    namespace_uri: str = "urn:sigmatrack:advisor"
+    allow_anonymous_read: bool = True
+
+
+@dataclass(frozen=True)
+class OpcUaConfig:
+    endpoint: str = "opc.tcp://127.0.0.1:4840/plant"
+    node_id_format: str = "ns=2;s={tag}"
+    security_policy: Literal["none", "Basic256Sha256"] = "none"
+    security_mode: Literal["none", "sign", "sign-and-encrypt"] = "none"
+    certificate: Path | None = None
+    private_key: Path | None = None
+    trust_dir: Path | None = None
+    username: str | None = None
+    password_env: str | None = None
+    password_file: Path | None = None
+    sampling_interval_ms: float = field(default=500.0, metadata=check(positive))
+    publishing_interval_ms: float = field(default=100.0, metadata=check(positive))
+    write_to_dcs: bool = False
+    server: OpcUaServerConfig = OpcUaServerConfig()
+
+    def __post_init__(self) -> None:
+        if "{tag}" not in self.node_id_format:
+            raise Invalid("node_id_format", "must contain {tag}, where the tag name goes")
+        if (self.security_policy == "none") != (self.security_mode == "none"):
+            raise Invalid(
+                "security_mode", "security_policy and security_mode are both 'none' or neither"
+            )
+        if self.security_policy != "none":
+            for key in ("certificate", "private_key", "trust_dir"):
+                if getattr(self, key) is None:
+                    raise Invalid(key, f"needed with security_policy = {self.security_policy!r}")
+        if self.password_env is not None and self.password_file is not None:
+            raise Invalid("password_file", "give password_env or password_file, not both")
+
+
+@dataclass(frozen=True)
+class TagRef:
+    """A plant tag: its name (the historian column) and its OPC UA node id.
+
+    In the site file, either the tag name as a string (the node id follows from
+    ``opcua.node_id_format``) or a table ``{ name = "...", node = "ns=3;i=1042" }``.
+    """
+
+    name: str
+    node: str | None = None
+
+    @classmethod
+    def from_toml(cls, value: Any, key: str, file: Path) -> TagRef:
+        if isinstance(value, str) and value:
+            return cls(value)
+        if isinstance(value, Mapping):
+            return read_table(cls, value, file, key)
+        raise SiteConfigError(file, key, "must be a tag name or a table {name = ..., node = ...}")
+
+    def node_id(self, node_id_format: str) -> str:
+        """The OPC UA node id string of this tag."""
+        return self.node if self.node is not None else node_id_format.format(tag=self.name)
+
+
+@dataclass(frozen=True)
+class AnalyzerConfig:
+    conc_unit: ConcUnitName
+    noise_std: float = field(metadata=check(positive))
+    delay_s: float = field(default=0.0, metadata=check(non_negative))
+    sample_interval_s: float = field(default=10.0, metadata=check(positive))
+    range: tuple[float, float] = field(default=(0.0, 1.0e9), metadata=check(ascending_pair))
+
+
+@dataclass(frozen=True)
+class UnitConfig:
+    id: str
+    solvent_mass_kg: float = field(metadata=check(positive))
+    heat_transfer_w_per_k: float = field(metadata=check(positive))
+    heat_capacity_j_per_k: float = field(metadata=check(positive))
+    analyzer: AnalyzerConfig
+    tags: dict[str, TagRef]
+    temp_noise_std_k: float = field(default=0.05, metadata=check(positive))
+    seed_mass_kg: float = field(default=0.0, metadata=check(non_negative))
+    seed_mean_size_um: float = field(default=50.0, metadata=check(positive))
+    seed_size_std_um: float = field(default=10.0, metadata=check(positive))
+    phase_values: dict[str, int | str] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        for signal in self.tags:
+            if signal not in SIGNALS:
+                raise Invalid(f"tags.{signal}", f"unknown signal; known: {', '.join(SIGNALS)}")
+        for signal in REQUIRED_SIGNALS:
+            if signal not in self.tags:
+                raise Invalid(f"tags.{signal}", "missing (this signal is required)")
+        for phase in self.phase_values:
+            if phase not in BATCH_PHASES:
+                raise Invalid(
+                    f"phase_values.{phase}", f"unknown phase; known: {', '.join(BATCH_PHASES)}"
+                )
+        values = list(self.phase_values.values())
+        if len(set(values)) != len(values):
+            raise Invalid("phase_values", "two phases share one DCS value")
+
+
+@dataclass(frozen=True)
+class SiteConfig:
+    """A whole site file, validated. ``path`` and ``sha256`` identify it in the audit trail."""
+
+    site: SiteSection
+    compound: CompoundConfig
+    solubility: SolubilityConfig
+    metastable: MetastableConfig
+    model: ModelConfig
+    guard: GuardConfig
+    unit: tuple[UnitConfig, ...]
+    filter: FilterConfig = FilterConfig()
+    validation: ValidationConfig = ValidationConfig()
+    controller: ControllerConfig = ControllerConfig()
+    alarms: AlarmsConfig = AlarmsConfig()
+    store: StoreConfig = StoreConfig()
+    opcua: OpcUaConfig = OpcUaConfig()
+    simulator: dict[str, Any] | None = None
+    path: Path = field(default=Path(), init=False)
+    sha256: str = field(default="", init=False)
+
+    def __post_init__(self) -> None:
+        if not self.unit:
+            raise Invalid("unit", "at least one [[unit]] is needed")
+        ids = [u.id for u in self.unit]
+        for i, unit_id in enumerate(ids):
+            if unit_id in ids[:i]:
+                raise Invalid(f"unit[{i}].id", f"{unit_id!r} is used by two units")
+        if self.opcua.write_to_dcs:
+            for i, unit in enumerate(self.unit):
+                for signal in WRITE_SIGNALS:
+                    if signal not in unit.tags:
+                        raise Invalid(
+                            f"unit[{i}].tags.{signal}", "needed when opcua.write_to_dcs = true"
+                        )
+
+    def unit_by_id(self, unit_id: str) -> UnitConfig:
+        for unit in self.unit:
+            if unit.id == unit_id:
+                return unit
+        raise KeyError(unit_id)
+
+
+_SECRET_KEYS = ("password", "secret", "private_key_password")
+
+
+def _refuse_secrets(table: Mapping[str, Any], file: Path, prefix: str = "") -> None:
+    for key, value in table.items():
+        dotted = f"{prefix}.{key}" if prefix else key
+        if key in _SECRET_KEYS:
+            raise SiteConfigError(
+                file,
+                dotted,
+                "secrets do not belong in the site file: use password_env (an environment "
+                "variable) or password_file (a file readable only by the service account)",
+            )
+        if isinstance(value, Mapping):
+            _refuse_secrets(value, file, dotted)
+
+
+def parse_site(text: str, file: Path) -> SiteConfig:
+    """Validate the text of a site file; ``file`` names it in messages and anchors paths."""
+    try:
+        table = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise SiteConfigError(file, "", f"not valid TOML: {error}") from None
+    _refuse_secrets(table, file)
+    site = read_table(SiteConfig, table, file)
+    object.__setattr__(site, "path", file)
+    object.__setattr__(site, "sha256", hashlib.sha256(text.encode()).hexdigest())
+    return site
+
+
+def load_site_file(path: Path | str) -> SiteConfig:
+    """Read and validate a site file.
+
+    Raises
+    ------
+    SiteConfigError
+        If the file cannot be read, is not TOML, or breaks the schema; the message names the
+        file and the key.
+    """
+    file = Path(path).resolve()
+    try:
+        text = file.read_text(encoding="utf-8")
+    except OSError as error:
+        raise SiteConfigError(file, "", f"cannot be read ({error.strerror})") from None
+    except UnicodeDecodeError:
+        raise SiteConfigError(file, "", "is not UTF-8 text") from None
+    return parse_site(text, file)

@@ -1,0 +1,186 @@
+"""Reading lab data files: solubility points and polythermal cloud points.
+
+The files are CSV with a header row. Lines starting with ``#`` and blank lines are skipped
+anywhere; columns other than the ones needed are ignored. Each value needed must be a finite
+number; the first problem found is reported with the file and its line number, and nothing is
+guessed. Concentrations are converted to kg/kg solvent and temperatures to K here, once.
+
+=================  ==========================================  ============================
+file               columns                                     units
+=================  ==========================================  ============================
+solubility         ``temp_c``, ``conc``                        °C, the unit given
+cloud points       ``conc``, ``rate_k_per_min``,               the unit given, K/min, °C
+                   ``cloud_temp_c``
+=================  ==========================================  ============================
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from sensor.errors import DataFileError, UnitError
+from sensor.numerics import FloatArray
+from sensor.units import (
+    ConcentrationUnit,
+    celsius_to_kelvin,
+    per_minute_to_per_second,
+)
+
+
+@dataclass(frozen=True)
+class Columns:
+    """Numeric columns read from a CSV file, with the file line each row came from."""
+
+    file: Path
+    values: dict[str, FloatArray]
+    lines: tuple[int, ...]
+
+    def line_of(self, row: int) -> int:
+        return self.lines[row]
+
+
+def read_numeric_columns(path: Path | str, names: Sequence[str]) -> Columns:
+    """Read the named columns of a CSV file as floats.
+
+    Raises
+    ------
+    DataFileError
+        If the file cannot be read, has no header or lacks a column, or a cell is empty, not a
+        number, NaN or infinite; the message names the file, the line and the column.
+    """
+    file = Path(path)
+    try:
+        text = file.read_text(encoding="utf-8-sig")
+    except OSError as error:
+        raise DataFileError(file, None, f"cannot be read ({error.strerror})") from None
+    except UnicodeDecodeError:
+        raise DataFileError(file, None, "is not UTF-8 text") from None
+    numbered = [
+        (number, line)
+        for number, line in enumerate(text.splitlines(), start=1)
+        if line.strip() and not line.lstrip().startswith("#")
+    ]
+    if not numbered:
+        raise DataFileError(file, None, "holds no header and no data")
+    rows = csv.reader([line for _, line in numbered])
+    header_line = numbered[0][0]
+    header = [name.strip() for name in next(rows)]
+    index = {}
+    for name in names:
+        if name not in header:
+            raise DataFileError(
+                file, header_line, f"no column {name!r} (the header has {', '.join(header)})"
+            )
+        index[name] = header.index(name)
+    columns: dict[str, list[float]] = {name: [] for name in names}
+    lines = []
+    for (number, _), row in zip(numbered[1:], rows, strict=True):
+        for name in names:
+            position = index[name]
+            cell = row[position].strip() if position < len(row) else ""
+            if not cell:
+                raise DataFileError(file, number, f"column {name!r} is empty")
+            try:
+                value = float(cell)
+            except ValueError:
+                raise DataFileError(
+                    file, number, f"column {name!r}: {cell!r} is not a number"
+                ) from None
+            if not math.isfinite(value):
+                raise DataFileError(file, number, f"column {name!r}: {cell!r} is not finite")
+            columns[name].append(value)
+        lines.append(number)
+    if not lines:
+        raise DataFileError(file, None, "holds a header but no data rows")
+    return Columns(file, {n: np.array(v) for n, v in columns.items()}, tuple(lines))
+
+
+def _convert(
+    columns: Columns, name: str, unit: ConcentrationUnit, temp_k: FloatArray
+) -> FloatArray:
+    """Column ``name`` in ``unit`` to kg/kg solvent (at each row's temperature, for g/L)."""
+    raw = columns.values[name]
+    try:
+        return unit.to_kg_per_kg(raw, temp_k)
+    except UnitError:
+        for row, value in enumerate(raw):
+            try:
+                unit.to_kg_per_kg(value, temp_k[row])
+            except UnitError as error:
+                raise DataFileError(
+                    columns.file, columns.line_of(row), f"column {name!r}: {error}"
+                ) from None
+        raise
+
+
+@dataclass(frozen=True)
+class SolubilityData:
+    """Solubility points: saturation temperature [K] and concentration [kg/kg solvent]."""
+
+    temp_k: FloatArray
+    conc: FloatArray
+    source: Columns
+
+
+def read_solubility_csv(path: Path | str, unit: ConcentrationUnit) -> SolubilityData:
+    """Read a solubility file (columns ``temp_c``, ``conc``).
+
+    The same temperature twice with different concentrations is refused: average replicate
+    measurements before fitting (a repeated identical row is accepted).
+    """
+    columns = read_numeric_columns(path, ("temp_c", "conc"))
+    temp_c = columns.values["temp_c"]
+    temp_k = celsius_to_kelvin(temp_c)
+    conc = _convert(columns, "conc", unit, temp_k)
+    first_seen: dict[float, int] = {}
+    for row, t in enumerate(temp_c):
+        if t in first_seen:
+            earlier = first_seen[t]
+            if conc[earlier] != conc[row]:
+                raise DataFileError(
+                    columns.file,
+                    columns.line_of(row),
+                    f"temp_c {t:g} is already on line {columns.line_of(earlier)} with conc "
+                    f"{columns.values['conc'][earlier]:g} (here {columns.values['conc'][row]:g}); "
+                    "average replicates before fitting",
+                )
+        else:
+            first_seen[t] = row
+    for row, c in enumerate(conc):
+        if c <= 0.0:
+            raise DataFileError(
+                columns.file, columns.line_of(row), "conc must be positive for a solubility point"
+            )
+    return SolubilityData(temp_k, conc, columns)
+
+
+@dataclass(frozen=True)
+class CloudPointData:
+    """Cloud points: concentration [kg/kg solvent], cooling rate [K/s], cloud temperature [K]."""
+
+    conc: FloatArray
+    rate_k_per_s: FloatArray
+    cloud_temp_k: FloatArray
+    source: Columns
+
+
+def read_cloud_points_csv(path: Path | str, unit: ConcentrationUnit) -> CloudPointData:
+    """Read a cloud-point file (columns ``conc``, ``rate_k_per_min``, ``cloud_temp_c``)."""
+    columns = read_numeric_columns(path, ("conc", "rate_k_per_min", "cloud_temp_c"))
+    cloud_temp_k = celsius_to_kelvin(columns.values["cloud_temp_c"])
+    conc = _convert(columns, "conc", unit, cloud_temp_k)
+    rate = columns.values["rate_k_per_min"]
+    for row, value in enumerate(rate):
+        if value <= 0.0:
+            raise DataFileError(
+                columns.file,
+                columns.line_of(row),
+                f"rate_k_per_min must be positive; got {value:g}",
+            )
+    return CloudPointData(conc, per_minute_to_per_second(rate), cloud_temp_k, columns)
