@@ -131,27 +131,33 @@ class MetastableConfig:
 
 @dataclass(frozen=True)
 class ModelConfig:
-    """Kinetics of the soft sensor's estimation model (moments model)."""
+    """Kinetics of the soft sensor's estimation model (moments model), with their stated
+    uncertainty."""
 
     growth_rate_constant_m_per_s: float = field(metadata=check(positive))
-    growth_order: float = field(metadata=check(positive))
+    growth_order: float = field(metadata=check(at_least(1.0)))
     nucleation_rate_constant_per_kg_s: float = field(metadata=check(non_negative))
-    nucleation_order: float = field(metadata=check(positive))
+    nucleation_order: float = field(metadata=check(at_least(1.0)))
     nucleation_solids_exponent: float = field(default=1.0, metadata=check(non_negative))
     dissolution_rate_constant_m_per_s: float = field(default=0.0, metadata=check(non_negative))
     growth_rel_std: float = field(default=0.3, metadata=check(non_negative))
     nucleation_rel_std: float = field(default=0.5, metadata=check(non_negative))
+    kinetics_error_time_s: float = field(default=60.0, metadata=check(positive))
+    seed_rel_std: float = field(default=0.1, metadata=check(non_negative))
     estimate_growth_scale: bool = True
+    max_step_s: float = field(default=1.0, metadata=check(positive))
 
 
 @dataclass(frozen=True)
 class FilterConfig:
     kind: Literal["ukf", "ekf"] = "ukf"
     gate_probability: float = field(default=0.999, metadata=check(open_fraction))
+    max_consecutive_gated: int = field(default=5, metadata=check(at_least(1)))
     nis_window: int = field(default=30, metadata=check(at_least(2)))
     nis_probability: float = field(default=0.95, metadata=check(open_fraction))
     temp_process_std_k_per_sqrt_s: float = field(default=2e-3, metadata=check(positive))
     conc_process_std_per_sqrt_s: float = field(default=2e-6, metadata=check(positive))
+    moment_process_std_per_sqrt_s: float = field(default=1e-8, metadata=check(positive))
     bias_random_walk_std_per_sqrt_s: float = field(default=1e-6, metadata=check(non_negative))
     growth_scale_random_walk_std_per_sqrt_s: float = field(
         default=1e-4, metadata=check(non_negative)
@@ -159,6 +165,11 @@ class FilterConfig:
     initial_temp_std_k: float = field(default=0.5, metadata=check(positive))
     initial_conc_rel_std: float = field(default=0.05, metadata=check(positive))
     initial_bias_std: float = field(default=0.005, metadata=check(positive))
+    initial_moment_std: float = field(default=1e-6, metadata=check(positive))
+    sigma_alpha: float = field(default=1.0, metadata=check(positive))
+    sigma_beta: float = field(default=2.0, metadata=check(non_negative))
+    sigma_kappa: float = field(default=0.0, metadata=check(non_negative))
+    history_margin_s: float = field(default=60.0, metadata=check(non_negative))
 
 
 @dataclass(frozen=True)
@@ -170,6 +181,7 @@ class ValidationConfig:
     )
     max_temp_rate_k_per_min: float = field(default=10.0, metadata=check(positive))
     spike_threshold_std: float = field(default=6.0, metadata=check(positive))
+    accept_uncertain: bool = False
 
 
 @dataclass(frozen=True)

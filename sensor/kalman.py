@@ -1,0 +1,551 @@
+r"""The soft sensor's Kalman filter: filterpy's UKF (default) or EKF on the crystallizer model,
+with the analyzer's transport delay, innovation gating and a covariance kept symmetric.
+
+Measurements (scalar, sequential updates):
+
+- reactor temperature, :math:`z_T = T + v_T`, :math:`v_T \sim N(0, r_T)`;
+- analyzer concentration, :math:`z_c(t) = c(t - d) + b + v_c`, delayed by :math:`d`.
+
+**Delay: a buffer with re-filtering.** The filter keeps the events (sample times, jacket input,
+temperature measurements, seeding) of the last :math:`d` + ``history_margin_s`` seconds with the
+posterior after each. An analyzer value arriving at :math:`t` was drawn at :math:`t_s = t - d`:
+the filter returns to the last event at or before :math:`t_s`, predicts to :math:`t_s`, applies
+the analyzer update there, and re-runs every later event (predict and temperature update) up to
+:math:`t`. For a linear system this is the exact Bayesian answer (measurements taken in their
+true order); it handles irregular sample times and any delay, and costs about :math:`d / \Delta t`
+extra steps per analyzer sample. An analyzer value older than the history is refused.
+
+**Process noise** is additive, white, per state, with a state-dependent part for the kinetics'
+stated uncertainty: the nucleation rate's relative error :math:`\epsilon_B` (and the growth
+rate's :math:`\epsilon_G` when :math:`\theta` is not estimated) is treated as white noise with
+correlation time :math:`\tau`, so its variance per step is
+:math:`(\epsilon f)^2 \tau \Delta t`, :math:`f` the rate it multiplies, evaluated at the mean.
+
+**Gating**: an update whose normalised innovation squared (NIS)
+:math:`\nu^2 = y^2 / S` exceeds the chi-square quantile at ``gate_probability`` (1 degree of
+freedom) is not applied and is reported as gated. After ``max_consecutive_gated`` gated analyzer
+values in a row the filter concludes that it, not the analyzer, is wrong: it widens the
+concentration and bias variances back to their initial values and applies the next one.
+
+**Covariance**: symmetrised after every predict and update; the UKF's sigma points need its
+Cholesky factor, so a covariance that stops being positive-definite raises
+:class:`FilterError` naming the time.
+
+References
+----------
+.. [1] S. J. Julier, J. K. Uhlmann, "Unscented filtering and nonlinear estimation",
+   Proc. IEEE 92 (2004) 401-422. doi:10.1109/JPROC.2003.823141
+.. [2] R. van der Merwe, *Sigma-Point Kalman Filters for Probabilistic Inference in Dynamic
+   State-Space Models*, PhD thesis, OGI, 2004 (scaled sigma points).
+.. [3] Y. Bar-Shalom, X. R. Li, T. Kirubarajan, *Estimation with Applications to Tracking and
+   Navigation*, Wiley, 2001, sections 5.4 (NIS, NEES, consistency) and 10.2 (out-of-sequence and
+   delayed measurements).
+.. [4] R. Labbe, *Kalman and Bayesian Filters in Python* (filterpy), 2015-2020.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Literal
+
+import numba
+import numpy as np
+from filterpy.kalman import ExtendedKalmanFilter, MerweScaledSigmaPoints, UnscentedKalmanFilter
+from scipy import stats
+
+from sensor.crystallizer import (
+    CONC,
+    GROWTH_SCALE,
+    TEMP,
+    ZETA0,
+    ZETA3,
+    CrystallizerModel,
+    rates,
+    step,
+    step_jacobian,
+)
+from sensor.errors import SigmatrackError
+from sensor.numerics import FloatArray
+
+
+class FilterError(SigmatrackError, ArithmeticError):
+    """The filter's covariance stopped being positive-definite (or its state is not finite)."""
+
+
+# Indices into the packed noise vector the compiled process-noise function takes.
+Q_TEMP, Q_CONC, Q_MOMENT, Q_GROWTH_SCALE, Q_BIAS = 0, 1, 2, 3, 4
+Q_NUCLEATION_REL, Q_GROWTH_REL, Q_ERROR_TIME = 5, 6, 7
+N_NOISE = 8
+
+
+@dataclass(frozen=True)
+class FilterTuning:
+    """Tuning of the filter (site file ``[filter]`` and ``[model]`` uncertainty keys), in SI.
+
+    Parameters
+    ----------
+    kind : ``"ukf"`` (filterpy's UnscentedKalmanFilter) or ``"ekf"`` (ExtendedKalmanFilter)
+    temp_process_std : process noise on :math:`T` [K/√s]
+    conc_process_std : process noise on :math:`c` [kg/kg/√s]
+    moment_process_std : process noise on each scaled moment [kg/kg/√s]
+    growth_scale_random_walk_std : random walk of :math:`\\theta` [1/√s]
+    bias_random_walk_std : random walk of the analyzer bias [kg/kg/√s]
+    growth_rel_std : relative std of :math:`k_g` [-]: the initial std of :math:`\\theta`, or
+        (without :math:`\\theta`) process noise on the growth term
+    nucleation_rel_std : relative std of :math:`k_b` [-], process noise on the nucleation term
+    kinetics_error_time_s : correlation time :math:`\\tau` of the kinetics' errors [s]
+    initial_temp_std : [K]
+    initial_conc_rel_std : [-], relative to the first analyzer value
+    initial_bias_std : [kg/kg]
+    initial_moment_std : std of each scaled moment before seeding [kg/kg]
+    seed_rel_std : relative std of the seed charge's moments [-]
+    gate_probability : chi-square gate [-]
+    max_consecutive_gated : gated analyzer values in a row before the filter widens itself
+    sigma_alpha, sigma_beta, sigma_kappa : Merwe's scaled sigma-point parameters [2]_
+    history_margin_s : history kept beyond the analyzer delay [s]
+    """
+
+    kind: Literal["ukf", "ekf"] = "ukf"
+    temp_process_std: float = 2e-3
+    conc_process_std: float = 2e-6
+    moment_process_std: float = 1e-8
+    growth_scale_random_walk_std: float = 1e-4
+    bias_random_walk_std: float = 1e-6
+    growth_rel_std: float = 0.3
+    nucleation_rel_std: float = 0.5
+    kinetics_error_time_s: float = 60.0
+    initial_temp_std: float = 0.5
+    initial_conc_rel_std: float = 0.05
+    initial_bias_std: float = 0.005
+    initial_moment_std: float = 1e-6
+    seed_rel_std: float = 0.1
+    gate_probability: float = 0.999
+    max_consecutive_gated: int = 5
+    sigma_alpha: float = 1.0
+    sigma_beta: float = 2.0
+    sigma_kappa: float = 0.0
+    history_margin_s: float = 60.0
+
+    def __post_init__(self) -> None:
+        positive = (
+            "temp_process_std",
+            "conc_process_std",
+            "moment_process_std",
+            "kinetics_error_time_s",
+            "initial_temp_std",
+            "initial_conc_rel_std",
+            "initial_bias_std",
+            "initial_moment_std",
+            "sigma_alpha",
+        )
+        for name in positive:
+            value = getattr(self, name)
+            if not (math.isfinite(value) and value > 0.0):
+                raise ValueError(f"filter tuning: {name} must be positive; got {value}")
+        for name in (
+            "growth_scale_random_walk_std",
+            "bias_random_walk_std",
+            "growth_rel_std",
+            "nucleation_rel_std",
+            "seed_rel_std",
+            "history_margin_s",
+        ):
+            value = getattr(self, name)
+            if not (math.isfinite(value) and value >= 0.0):
+                raise ValueError(f"filter tuning: {name} cannot be negative; got {value}")
+        if not 0.0 < self.gate_probability < 1.0:
+            raise ValueError(f"gate_probability must be in (0, 1); got {self.gate_probability}")
+        if self.max_consecutive_gated < 1:
+            raise ValueError("max_consecutive_gated must be at least 1")
+
+    @property
+    def gate_nis(self) -> float:
+        """The NIS beyond which a scalar update is gated [-]."""
+        return float(stats.chi2.ppf(self.gate_probability, 1))
+
+
+def noise_vector(tuning: FilterTuning, estimate_growth_scale: bool) -> FloatArray:
+    """The packed process-noise intensities the compiled :func:`process_noise` takes."""
+    q = np.zeros(N_NOISE)
+    q[Q_TEMP] = tuning.temp_process_std
+    q[Q_CONC] = tuning.conc_process_std
+    q[Q_MOMENT] = tuning.moment_process_std
+    q[Q_GROWTH_SCALE] = tuning.growth_scale_random_walk_std
+    q[Q_BIAS] = tuning.bias_random_walk_std
+    q[Q_NUCLEATION_REL] = tuning.nucleation_rel_std
+    q[Q_GROWTH_REL] = 0.0 if estimate_growth_scale else tuning.growth_rel_std
+    q[Q_ERROR_TIME] = tuning.kinetics_error_time_s
+    return q
+
+
+@numba.njit(cache=True)
+def process_noise(
+    x: FloatArray,
+    dt: float,
+    jacket_temp_k: float,
+    params: FloatArray,
+    table: FloatArray,
+    noise: FloatArray,
+) -> FloatArray:
+    """Diagonal process-noise covariance :math:`Q` over ``dt`` [s] at the mean ``x``."""
+    n = x.shape[0]
+    q = np.zeros((n, n))
+    if dt <= 0.0:
+        return q
+    slope = np.empty(n)
+    rates(x, jacket_temp_k, params, table, slope)
+    kinetic = noise[Q_ERROR_TIME] * dt
+    q[TEMP, TEMP] = noise[Q_TEMP] ** 2 * dt
+    q[CONC, CONC] = noise[Q_CONC] ** 2 * dt + (noise[Q_GROWTH_REL] * slope[CONC]) ** 2 * kinetic
+    for k in range(ZETA0, ZETA3 + 1):
+        q[k, k] = noise[Q_MOMENT] ** 2 * dt
+    q[ZETA0, ZETA0] += (noise[Q_NUCLEATION_REL] * slope[ZETA0]) ** 2 * kinetic
+    if n == 8:
+        q[GROWTH_SCALE, GROWTH_SCALE] = noise[Q_GROWTH_SCALE] ** 2 * dt
+    q[n - 1, n - 1] = noise[Q_BIAS] ** 2 * dt
+    return q
+
+
+def merwe_weights(n: int, alpha: float, beta: float, kappa: float) -> tuple[FloatArray, FloatArray]:
+    r"""Weights of Merwe's scaled sigma points [2]_ (as filterpy computes them):
+    :math:`\lambda = \alpha^2 (n + \kappa) - n`, :math:`W_0^m = \lambda/(n+\lambda)`,
+    :math:`W_0^c = W_0^m + 1 - \alpha^2 + \beta`, :math:`W_i = 1 / (2(n+\lambda))`."""
+    points = MerweScaledSigmaPoints(n, alpha, beta, kappa)
+    return np.array(points.Wm, dtype=float), np.array(points.Wc, dtype=float)
+
+
+@dataclass(frozen=True)
+class UpdateInfo:
+    """What one scalar update did.
+
+    Attributes
+    ----------
+    innovation : measured minus predicted [K or kg/kg]
+    innovation_var : its predicted variance :math:`S` [K² or (kg/kg)²]
+    nis : :math:`y^2/S` [-]
+    gated : True when the update was refused by the gate
+    widened : True when the filter widened its concentration and bias variances first
+    """
+
+    innovation: float
+    innovation_var: float
+    nis: float
+    gated: bool
+    widened: bool = False
+
+
+@dataclass
+class _Event:
+    time_s: float
+    jacket_temp_k: float
+    temp_k: float  # NaN: no temperature update at this event
+    conc: float  # NaN: no analyzer update at this event
+    seed: bool
+    x: FloatArray
+    P: FloatArray
+
+
+@dataclass(frozen=True)
+class Measurements:
+    """Measurement noise and delay, in SI.
+
+    Parameters
+    ----------
+    temp_noise_std_k : temperature transmitter noise [K]
+    conc_noise_std : analyzer noise [kg/kg]
+    analyzer_delay_s : transport and processing delay of the analyzer [s]
+    """
+
+    temp_noise_std_k: float
+    conc_noise_std: float
+    analyzer_delay_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        if not (self.temp_noise_std_k > 0.0 and self.conc_noise_std > 0.0):
+            raise ValueError("measurement noise std must be positive")
+        if not self.analyzer_delay_s >= 0.0:
+            raise ValueError(f"analyzer delay cannot be negative; got {self.analyzer_delay_s}")
+
+
+def initial_state(
+    model: CrystallizerModel, tuning: FilterTuning, temp_k: float, conc_measured: float
+) -> tuple[FloatArray, FloatArray]:
+    """Prior mean and covariance at the first valid sample: measured temperature, the analyzer
+    value as the concentration (bias 0), no crystals, :math:`\\theta = 1`."""
+    layout = model.layout
+    x = np.zeros(layout.size)
+    x[TEMP] = temp_k
+    x[CONC] = conc_measured
+    std = np.full(layout.size, tuning.initial_moment_std)
+    std[TEMP] = tuning.initial_temp_std
+    std[CONC] = tuning.initial_conc_rel_std * max(conc_measured, 1e-6)
+    if layout.estimate_growth_scale:
+        x[GROWTH_SCALE] = 1.0
+        std[GROWTH_SCALE] = max(tuning.growth_rel_std, 1e-6)
+    std[layout.bias] = tuning.initial_bias_std
+    return x, np.diag(std**2)
+
+
+def seed_covariance(seed_zeta: FloatArray, tuning: FilterTuning, size: int) -> FloatArray:
+    """Covariance added to the moments at seeding: the seed's moments scale together with the
+    seed charge (relative std ``seed_rel_std``), plus the moment floor."""
+    added = np.zeros((size, size))
+    block = slice(ZETA0, ZETA3 + 1)
+    added[block, block] = tuning.seed_rel_std**2 * np.outer(seed_zeta, seed_zeta)
+    return added
+
+
+class CrystallizerFilter:
+    """The per-unit Kalman filter: filterpy's UKF or EKF on :class:`CrystallizerModel`, with the
+    delayed analyzer handled by re-filtering (module docstring).
+
+    Call :meth:`start` once, then for each sample in time order :meth:`advance` (predict to the
+    sample's time, seed if the batch was seeded, update with the temperature) and, when the
+    sample holds an analyzer value, :meth:`analyzer`. Times are the samples' own [s]; nothing
+    here reads a clock.
+    """
+
+    def __init__(
+        self,
+        model: CrystallizerModel,
+        tuning: FilterTuning,
+        measurements: Measurements,
+        seed_zeta: FloatArray,
+    ) -> None:
+        self.model = model
+        self.tuning = tuning
+        self.measurements = measurements
+        self.seed_zeta = np.asarray(seed_zeta, dtype=float)
+        if self.seed_zeta.shape != (4,):
+            raise ValueError("seed moments must be 4 numbers (zeta0..zeta3)")
+        n = model.layout.size
+        self._noise = noise_vector(tuning, model.layout.estimate_growth_scale)
+        self._seed_cov = seed_covariance(self.seed_zeta, tuning, n)
+        self._gate = tuning.gate_nis
+        self._h_temp = np.zeros((1, n))
+        self._h_temp[0, TEMP] = 1.0
+        self._h_conc = np.zeros((1, n))
+        self._h_conc[0, CONC] = 1.0
+        self._h_conc[0, model.layout.bias] = 1.0
+        self._r_temp = np.array([[measurements.temp_noise_std_k**2]])
+        self._r_conc = np.array([[measurements.conc_noise_std**2]])
+        if tuning.kind == "ukf":
+            points = MerweScaledSigmaPoints(
+                n, tuning.sigma_alpha, tuning.sigma_beta, tuning.sigma_kappa
+            )
+            self._ukf = UnscentedKalmanFilter(
+                n, 1, 1.0, hx=self._hx_temp, fx=self._fx, points=points
+            )
+            self._ekf = None
+        else:
+            self._ekf = _ModelEKF(n, model)
+            self._ukf = None
+        self._events: list[_Event] = []
+        self._gated_run = 0
+
+    # --- filterpy callbacks ------------------------------------------------------------------
+
+    def _fx(self, x: FloatArray, dt: float, jacket_temp_k: float) -> FloatArray:
+        return step(x, dt, jacket_temp_k, self.model.params, self.model.table)
+
+    def _hx_temp(self, x: FloatArray) -> FloatArray:
+        return self._h_temp @ x
+
+    def _hx_conc(self, x: FloatArray) -> FloatArray:
+        return self._h_conc @ x
+
+    # --- state ---------------------------------------------------------------------------------
+
+    @property
+    def started(self) -> bool:
+        return bool(self._events)
+
+    @property
+    def time_s(self) -> float:
+        return self._events[-1].time_s
+
+    @property
+    def x(self) -> FloatArray:
+        """Posterior mean at the latest sample."""
+        return self._events[-1].x
+
+    @property
+    def P(self) -> FloatArray:
+        """Posterior covariance at the latest sample."""
+        return self._events[-1].P
+
+    def _get(self) -> tuple[FloatArray, FloatArray]:
+        f = self._ukf if self._ukf is not None else self._ekf
+        return f.x, f.P
+
+    def _set(self, x: FloatArray, P: FloatArray) -> None:
+        f = self._ukf if self._ukf is not None else self._ekf
+        f.x = x.copy()
+        f.P = P.copy()
+
+    def start(
+        self, time_s: float, temp_k: float, conc_measured: float, jacket_temp_k: float
+    ) -> None:
+        """Initialise at the first sample with valid temperature, jacket and analyzer values."""
+        x, P = initial_state(self.model, self.tuning, temp_k, conc_measured)
+        self._events = [_Event(time_s, jacket_temp_k, math.nan, math.nan, False, x, P)]
+        self._gated_run = 0
+
+    # --- one event -----------------------------------------------------------------------------
+
+    def _predict(self, dt: float, jacket_temp_k: float, time_s: float) -> None:
+        x, P = self._get()
+        q = process_noise(x, dt, jacket_temp_k, self.model.params, self.model.table, self._noise)
+        try:
+            if self._ukf is not None:
+                self._ukf.Q = q
+                self._ukf.predict(dt=dt, jacket_temp_k=jacket_temp_k)
+            else:
+                self._ekf.Q = q
+                self._ekf.predict_model(dt, jacket_temp_k)
+        except np.linalg.LinAlgError:
+            raise FilterError(
+                f"t = {time_s:.1f} s: the covariance is not positive-definite"
+            ) from None
+        x, P = self._get()
+        self._set(x, 0.5 * (P + P.T))
+
+    def _seed(self) -> None:
+        x, P = self._get()
+        x = x.copy()
+        x[ZETA0 : ZETA3 + 1] += self.seed_zeta
+        self._set(x, P + self._seed_cov)
+        self._redraw()
+
+    def _redraw(self) -> None:
+        if self._ukf is not None:
+            self._ukf.sigmas_f = self._ukf.points_fn.sigma_points(self._ukf.x, self._ukf.P)
+
+    def _update(self, z: float, channel: Literal["temp", "conc"], force: bool) -> UpdateInfo:
+        x, P = self._get()
+        h = self._h_temp if channel == "temp" else self._h_conc
+        r = self._r_temp if channel == "temp" else self._r_conc
+        innovation = float(z - (h @ x)[0])
+        var = float((h @ P @ h.T)[0, 0] + r[0, 0])
+        nis = innovation * innovation / var
+        if nis > self._gate and not force:
+            return UpdateInfo(innovation, var, nis, gated=True)
+        zv = np.array([z])
+        if self._ukf is not None:
+            hx = self._hx_temp if channel == "temp" else self._hx_conc
+            self._ukf.update(zv, R=r, hx=hx)
+        else:
+            self._ekf.update(zv, HJacobian=lambda _x: h, Hx=lambda s: h @ s, R=r)
+        x, P = self._get()
+        self._set(x, 0.5 * (P + P.T))
+        return UpdateInfo(innovation, var, nis, gated=False)
+
+    def _run(self, event: _Event, previous: _Event) -> UpdateInfo | None:
+        """Process ``event`` from ``previous``'s posterior; store and return the temperature
+        update's info."""
+        self._set(previous.x, previous.P)
+        self._predict(event.time_s - previous.time_s, previous.jacket_temp_k, event.time_s)
+        if event.seed:
+            self._seed()
+        info = None
+        if not math.isnan(event.temp_k):
+            info = self._update(event.temp_k, "temp", force=False)
+        if not math.isnan(event.conc):
+            self._update(event.conc, "conc", force=True)
+        x, P = self._get()
+        if not np.all(np.isfinite(x)):
+            raise FilterError(f"t = {event.time_s:.1f} s: the state is not finite")
+        event.x, event.P = x.copy(), P.copy()
+        return info
+
+    # --- public steps --------------------------------------------------------------------------
+
+    def advance(
+        self, time_s: float, jacket_temp_k: float, temp_k: float | None, seed: bool = False
+    ) -> UpdateInfo | None:
+        """Predict to ``time_s`` [s], seed if ``seed``, update with ``temp_k`` [K] (None: no
+        valid temperature). ``jacket_temp_k`` [K] is the input from this sample on.
+
+        Returns the temperature update's :class:`UpdateInfo`, or None without one.
+        """
+        previous = self._events[-1]
+        if not time_s >= previous.time_s:
+            raise ValueError(f"t = {time_s} s is before the last sample {previous.time_s} s")
+        temp = math.nan if temp_k is None else float(temp_k)
+        event = _Event(time_s, jacket_temp_k, temp, math.nan, seed, previous.x, previous.P)
+        info = self._run(event, previous)
+        self._events.append(event)
+        self._prune()
+        return info
+
+    def analyzer(self, time_s: float, conc_measured: float) -> UpdateInfo | None:
+        """Apply an analyzer value that arrived at ``time_s`` [s] (drawn at ``time_s`` minus the
+        delay) and re-filter to the latest sample. Returns None when the value is older than the
+        filter's history (it is then not used)."""
+        drawn = time_s - self.measurements.analyzer_delay_s
+        index = self._anchor(drawn)
+        if index is None:
+            return None
+        anchor = self._events[index]
+        self._set(anchor.x, anchor.P)
+        self._predict(drawn - anchor.time_s, anchor.jacket_temp_k, drawn)
+        force = self._gated_run >= self.tuning.max_consecutive_gated
+        widened = False
+        if force:
+            x, P = self._get()
+            self._set(x, _widened(P, x, self.tuning, self.model.layout.bias))
+            self._redraw()
+            widened = True
+        info = self._update(conc_measured, "conc", force=force)
+        self._gated_run = self._gated_run + 1 if info.gated else 0
+        if info.gated:
+            return info
+        x, P = self._get()
+        inserted = _Event(drawn, anchor.jacket_temp_k, math.nan, conc_measured, False, x, P)
+        inserted.x, inserted.P = x.copy(), P.copy()
+        self._events.insert(index + 1, inserted)
+        for i in range(index + 2, len(self._events)):
+            self._run(self._events[i], self._events[i - 1])
+        return UpdateInfo(info.innovation, info.innovation_var, info.nis, False, widened)
+
+    def _anchor(self, time_s: float) -> int | None:
+        for i in range(len(self._events) - 1, -1, -1):
+            if self._events[i].time_s <= time_s:
+                return i
+        return None
+
+    def _prune(self) -> None:
+        keep_from = self.time_s - self.measurements.analyzer_delay_s - self.tuning.history_margin_s
+        first = 0
+        while first + 1 < len(self._events) and self._events[first + 1].time_s <= keep_from:
+            first += 1
+        if first:
+            del self._events[:first]
+
+
+def _widened(P: FloatArray, x: FloatArray, tuning: FilterTuning, bias: int) -> FloatArray:
+    """``P`` with the concentration and bias variances raised by their initial values."""
+    widened = P.copy()
+    widened[CONC, CONC] += (tuning.initial_conc_rel_std * max(x[CONC], 1e-6)) ** 2
+    widened[bias, bias] += tuning.initial_bias_std**2
+    return widened
+
+
+class _ModelEKF(ExtendedKalmanFilter):
+    """filterpy's EKF with the crystallizer model as its state transition (``predict_x``)."""
+
+    def __init__(self, n: int, model: CrystallizerModel) -> None:
+        super().__init__(dim_x=n, dim_z=1)
+        self._model = model
+        self._dt = 0.0
+        self._jacket = 0.0
+
+    def predict_model(self, dt: float, jacket_temp_k: float) -> None:
+        self._dt = dt
+        self._jacket = jacket_temp_k
+        self.F = step_jacobian(self.x, dt, jacket_temp_k, self._model.params, self._model.table)
+        self.predict()
+
+    def predict_x(self, u: object = 0) -> None:
+        self.x = step(self.x, self._dt, self._jacket, self._model.params, self._model.table)
