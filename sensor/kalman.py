@@ -180,20 +180,22 @@ def noise_vector(tuning: FilterTuning, estimate_growth_scale: bool) -> FloatArra
 
 
 @numba.njit(cache=True)
-def process_noise(
+def process_noise_into(
     x: FloatArray,
     dt: float,
     jacket_temp_k: float,
     params: FloatArray,
     table: FloatArray,
     noise: FloatArray,
-) -> FloatArray:
-    """Diagonal process-noise covariance :math:`Q` over ``dt`` [s] at the mean ``x``."""
+    q: FloatArray,
+    slope: FloatArray,
+) -> None:
+    """Diagonal process-noise covariance :math:`Q` over ``dt`` [s] at the mean ``x``, into
+    ``q`` (n, n); ``slope`` is scratch."""
     n = x.shape[0]
-    q = np.zeros((n, n))
+    q[:, :] = 0.0
     if dt <= 0.0:
-        return q
-    slope = np.empty(n)
+        return
     rates(x, jacket_temp_k, params, table, slope)
     kinetic = noise[Q_ERROR_TIME] * dt
     q[TEMP, TEMP] = noise[Q_TEMP] ** 2 * dt
@@ -204,6 +206,21 @@ def process_noise(
     if n == 8:
         q[GROWTH_SCALE, GROWTH_SCALE] = noise[Q_GROWTH_SCALE] ** 2 * dt
     q[n - 1, n - 1] = noise[Q_BIAS] ** 2 * dt
+
+
+@numba.njit(cache=True)
+def process_noise(
+    x: FloatArray,
+    dt: float,
+    jacket_temp_k: float,
+    params: FloatArray,
+    table: FloatArray,
+    noise: FloatArray,
+) -> FloatArray:
+    """Diagonal process-noise covariance :math:`Q` over ``dt`` [s] at the mean ``x``."""
+    n = x.shape[0]
+    q = np.empty((n, n))
+    process_noise_into(x, dt, jacket_temp_k, params, table, noise, q, np.empty(n))
     return q
 
 
@@ -268,23 +285,48 @@ class Measurements:
             raise ValueError(f"analyzer delay cannot be negative; got {self.analyzer_delay_s}")
 
 
+# Indices into the packed initial-uncertainty vector.
+I_TEMP, I_CONC_REL, I_BIAS, I_MOMENT, I_GROWTH_SCALE = range(5)
+N_INITIAL = 5
+
+
+def initial_vector(tuning: FilterTuning) -> FloatArray:
+    """The packed initial standard deviations :func:`initial_state` and :func:`widen` take."""
+    init = np.zeros(N_INITIAL)
+    init[I_TEMP] = tuning.initial_temp_std
+    init[I_CONC_REL] = tuning.initial_conc_rel_std
+    init[I_BIAS] = tuning.initial_bias_std
+    init[I_MOMENT] = tuning.initial_moment_std
+    init[I_GROWTH_SCALE] = max(tuning.growth_rel_std, 1e-6)
+    return init
+
+
+@numba.njit(cache=True)
 def initial_state(
-    model: CrystallizerModel, tuning: FilterTuning, temp_k: float, conc_measured: float
+    temp_k: float, conc_measured: float, init: FloatArray, n: int
 ) -> tuple[FloatArray, FloatArray]:
     """Prior mean and covariance at the first valid sample: measured temperature, the analyzer
-    value as the concentration (bias 0), no crystals, :math:`\\theta = 1`."""
-    layout = model.layout
-    x = np.zeros(layout.size)
+    value as the concentration (bias 0), no crystals, :math:`\\theta = 1`; ``n`` is the state
+    size (8 with :math:`\\theta`)."""
+    x = np.zeros(n)
     x[TEMP] = temp_k
     x[CONC] = conc_measured
-    std = np.full(layout.size, tuning.initial_moment_std)
-    std[TEMP] = tuning.initial_temp_std
-    std[CONC] = tuning.initial_conc_rel_std * max(conc_measured, 1e-6)
-    if layout.estimate_growth_scale:
+    std = np.full(n, init[I_MOMENT])
+    std[TEMP] = init[I_TEMP]
+    std[CONC] = init[I_CONC_REL] * max(conc_measured, 1e-6)
+    if n == 8:
         x[GROWTH_SCALE] = 1.0
-        std[GROWTH_SCALE] = max(tuning.growth_rel_std, 1e-6)
-    std[layout.bias] = tuning.initial_bias_std
+        std[GROWTH_SCALE] = init[I_GROWTH_SCALE]
+    std[n - 1] = init[I_BIAS]
     return x, np.diag(std**2)
+
+
+@numba.njit(cache=True)
+def widen(P: FloatArray, x: FloatArray, init: FloatArray) -> None:
+    """Raise the concentration and bias variances of ``P`` by their initial values, in place."""
+    n = x.shape[0]
+    P[CONC, CONC] += (init[I_CONC_REL] * max(x[CONC], 1e-6)) ** 2
+    P[n - 1, n - 1] += init[I_BIAS] ** 2
 
 
 def seed_covariance(seed_zeta: FloatArray, tuning: FilterTuning, size: int) -> FloatArray:
@@ -321,6 +363,7 @@ class CrystallizerFilter:
             raise ValueError("seed moments must be 4 numbers (zeta0..zeta3)")
         n = model.layout.size
         self._noise = noise_vector(tuning, model.layout.estimate_growth_scale)
+        self._init = initial_vector(tuning)
         self._seed_cov = seed_covariance(self.seed_zeta, tuning, n)
         self._gate = tuning.gate_nis
         self._h_temp = np.zeros((1, n))
@@ -388,7 +431,7 @@ class CrystallizerFilter:
         self, time_s: float, temp_k: float, conc_measured: float, jacket_temp_k: float
     ) -> None:
         """Initialise at the first sample with valid temperature, jacket and analyzer values."""
-        x, P = initial_state(self.model, self.tuning, temp_k, conc_measured)
+        x, P = initial_state(temp_k, conc_measured, self._init, self.model.layout.size)
         self._events = [_Event(time_s, jacket_temp_k, math.nan, math.nan, False, x, P)]
         self._gated_run = 0
 
@@ -494,7 +537,9 @@ class CrystallizerFilter:
         widened = False
         if force:
             x, P = self._get()
-            self._set(x, _widened(P, x, self.tuning, self.model.layout.bias))
+            P = P.copy()
+            widen(P, x, self._init)
+            self._set(x, P)
             self._redraw()
             widened = True
         info = self._update(conc_measured, "conc", force=force)
@@ -522,14 +567,6 @@ class CrystallizerFilter:
             first += 1
         if first:
             del self._events[:first]
-
-
-def _widened(P: FloatArray, x: FloatArray, tuning: FilterTuning, bias: int) -> FloatArray:
-    """``P`` with the concentration and bias variances raised by their initial values."""
-    widened = P.copy()
-    widened[CONC, CONC] += (tuning.initial_conc_rel_std * max(x[CONC], 1e-6)) ** 2
-    widened[bias, bias] += tuning.initial_bias_std**2
-    return widened
 
 
 class _ModelEKF(ExtendedKalmanFilter):

@@ -140,9 +140,10 @@ class Estimates:
 
 
 def sigma_std(
-    temp_k: FloatArray,
     conc: FloatArray,
-    cov_tc: FloatArray,
+    temp_var: FloatArray,
+    cov_temp_conc: FloatArray,
+    conc_var: FloatArray,
     c_sat: FloatArray,
     dc_sat_dtemp: FloatArray,
     c_sat_std: FloatArray,
@@ -151,16 +152,15 @@ def sigma_std(
 
     Parameters
     ----------
-    temp_k : [K]; conc : [kg/kg]; cov_tc : covariance of (T, c), shape (..., 2, 2)
-    c_sat, dc_sat_dtemp, c_sat_std : the curve, its slope [kg/kg/K] and its std at ``temp_k``
+    conc : [kg/kg]
+    temp_var, cov_temp_conc, conc_var : the filter's covariance of (T, c) [K², K·kg/kg,
+        (kg/kg)²]
+    c_sat, dc_sat_dtemp, c_sat_std : the curve, its slope [kg/kg/K] and its std [kg/kg] at the
+        temperature
     """
     g_temp = -conc * dc_sat_dtemp / c_sat**2
     g_conc = 1.0 / c_sat
-    filter_var = (
-        g_temp**2 * cov_tc[..., 0, 0]
-        + 2.0 * g_temp * g_conc * cov_tc[..., 0, 1]
-        + g_conc**2 * cov_tc[..., 1, 1]
-    )
+    filter_var = g_temp**2 * temp_var + 2.0 * g_temp * g_conc * cov_temp_conc + g_conc**2 * conc_var
     curve_var = (conc / c_sat**2 * c_sat_std) ** 2
     return np.sqrt(np.maximum(filter_var, 0.0) + curve_var)
 
@@ -169,12 +169,14 @@ def estimates(
     model: CrystallizerModel,
     zone: MetastableZone,
     x: ArrayLike,
-    P: ArrayLike,
+    var: ArrayLike,
+    cov_temp_conc: ArrayLike,
     jacket_temp_k: ArrayLike,
     seed_load: ArrayLike,
     solvent_mass_kg: float,
 ) -> Estimates:
-    """The outputs for filter means ``x`` (N, n) and covariances ``P`` (N, n, n).
+    """The outputs for filter means ``x`` (N, n), variances ``var`` (N, n) and
+    temperature-concentration covariances ``cov_temp_conc`` (N,).
 
     Parameters
     ----------
@@ -185,12 +187,12 @@ def estimates(
     solvent_mass_kg : solvent in the batch [kg]
     """
     x = np.atleast_2d(np.asarray(x, dtype=float))
-    P = np.asarray(P, dtype=float).reshape(x.shape[0], x.shape[1], x.shape[1])
+    var = np.atleast_2d(np.asarray(var, dtype=float))
+    cov_tc = np.asarray(cov_temp_conc, dtype=float)
     jacket = np.asarray(jacket_temp_k, dtype=float)
     seed = np.asarray(seed_load, dtype=float)
     curve = zone.solubility
     layout = model.layout
-    var = np.diagonal(P, axis1=1, axis2=2)
     std = np.sqrt(np.maximum(var, 0.0))
     temp = x[:, TEMP]
     conc = x[:, CONC]
@@ -231,7 +233,7 @@ def estimates(
         delta_c=conc - c_sat,
         supersaturation_ratio=ratio,
         sigma=sigma,
-        sigma_std=sigma_std(temp, conc, P[:, :2, :2], c_sat, slope, c_sat_std),
+        sigma_std=sigma_std(conc, var[:, TEMP], cov_tc, var[:, CONC], c_sat, slope, c_sat_std),
         sigma_limit=sigma_limit,
         margin_sigma=sigma_limit - sigma,
         margin_k=margin_k,

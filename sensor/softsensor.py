@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from sensor.consistency import NisWindow
-from sensor.crystallizer import ZETA3, CrystallizerModel
+from sensor.crystallizer import CONC, TEMP, ZETA3, CrystallizerModel
 from sensor.errors import SigmatrackError
 from sensor.kalman import CrystallizerFilter, FilterTuning, Measurements, UpdateInfo
 from sensor.metastable import MetastableZone
@@ -213,7 +213,8 @@ class SoftSensor:
                 self.setup.model,
                 self.setup.zone,
                 self.filter.x[None, :],
-                self.filter.P[None, :, :],
+                np.diag(self.filter.P)[None, :],
+                np.array([self.filter.P[TEMP, CONC]]),
                 np.array([self._jacket.value]),
                 np.array([self._seed_load if self._seeded else 0.0]),
                 self.setup.solvent_mass_kg,

@@ -1,0 +1,724 @@
+r"""The replay kernel: the soft sensor's validation and UKF for many batches in one compiled call.
+
+It applies, sample by sample, exactly what :class:`sensor.softsensor.SoftSensor` does with
+filterpy's ``UnscentedKalmanFilter`` (same rules, same sigma points and weights, same order of
+predicts and updates, same re-filtering for the analyzer's delay; ``tests/test_batchfilter.py``
+holds the two to 1e-9 in every state), but fused into one numba kernel per batch:
+
+- the model, the process noise and the validation rules are the very functions the live path
+  calls (:mod:`sensor.crystallizer`, :mod:`sensor.kalman`, :mod:`sensor.validation`), inlined;
+- the two sigma points that differ from the mean only in the analyzer bias (the last state, whose
+  row of the Cholesky factor has a single entry) are not propagated: the model ignores the bias,
+  so their propagation equals the mean's, bit for bit;
+- the measurements are scalar and linear, so predicted measurements and cross-covariances are
+  sums over the sigma points without temporaries;
+- batches are independent, so :func:`filter_batches` can spread them over threads.
+
+It records, per sample, the state, its variances and the temperature-concentration covariance
+(what :func:`sensor.outputs.estimates` needs), the reason for each reading, the analyzer update's
+NIS and the health flags; the full covariance of millions of samples is not kept.
+
+Only the UKF is fused; an EKF site replays through the per-sample path.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import NamedTuple
+
+import numba
+import numpy as np
+
+from sensor.crystallizer import CONC, TEMP, ZETA0, step_into
+from sensor.errors import SigmatrackError
+from sensor.kalman import (
+    initial_state,
+    initial_vector,
+    merwe_weights,
+    noise_vector,
+    process_noise_into,
+    seed_covariance,
+    widen,
+)
+from sensor.numerics import FloatArray
+from sensor.samples import Sample, severity
+from sensor.softsensor import UnitSetup
+from sensor.validation import N_STATE, R_STALE, check_reading
+
+# Flags recorded per sample (bits of ``flags``).
+FLAG_STARTED, FLAG_SEEDED, FLAG_WIDENED = 1, 2, 4
+FLAG_TEMP_STALE, FLAG_JACKET_STALE, FLAG_CONC_STALE = 8, 16, 32
+
+# Signals, in the order of the reading arrays.
+SIGNAL_TEMP, SIGNAL_JACKET, SIGNAL_CONC = 0, 1, 2
+
+# Reason codes the kernel writes besides the validation rules' (sensor.validation.Reason).
+_GATED, _BEFORE_HISTORY, _MISSING = 9, 10, 11
+
+# Error codes the kernel returns.
+ERROR_NONE, ERROR_NOT_PD, ERROR_NOT_FINITE, ERROR_HISTORY_FULL = 0, 1, 2, 3
+
+
+class KernelSetup(NamedTuple):
+    """Everything the kernel needs besides the data, packed by :func:`kernel_setup` (a named
+    tuple of arrays and numbers, which numba passes to compiled code)."""
+
+    params: FloatArray
+    table: FloatArray
+    noise: FloatArray
+    init: FloatArray
+    seed_zeta: FloatArray
+    seed_cov: FloatArray
+    seed_load: float
+    wm: FloatArray
+    wc: FloatArray
+    spread: float
+    """:math:`n + \\lambda` of the sigma points"""
+    r_temp: float
+    r_conc: float
+    gate_nis: float
+    max_consecutive_gated: int
+    delay_s: float
+    history_margin_s: float
+    rules: FloatArray
+    """(3, N_RULES): the temperature's, jacket's and analyzer's validation rules"""
+
+
+def kernel_setup(setup: UnitSetup) -> KernelSetup:
+    """Pack a unit's setup for the kernel (UKF only)."""
+    tuning = setup.tuning
+    if tuning.kind != "ukf":
+        raise ValueError("the replay kernel runs the UKF; replay an EKF through SoftSensor")
+    model = setup.model
+    n = model.layout.size
+    wm, wc = merwe_weights(n, tuning.sigma_alpha, tuning.sigma_beta, tuning.sigma_kappa)
+    lam = tuning.sigma_alpha**2 * (n + tuning.sigma_kappa) - n
+    return KernelSetup(
+        params=model.params,
+        table=model.table,
+        noise=noise_vector(tuning, model.layout.estimate_growth_scale),
+        init=initial_vector(tuning),
+        seed_zeta=np.asarray(setup.seed_zeta, dtype=float),
+        seed_cov=seed_covariance(np.asarray(setup.seed_zeta, dtype=float), tuning, n),
+        seed_load=float(setup.seed_zeta[3]),
+        wm=wm,
+        wc=wc,
+        spread=float(n + lam),
+        r_temp=setup.measurements.temp_noise_std_k**2,
+        r_conc=setup.measurements.conc_noise_std**2,
+        gate_nis=tuning.gate_nis,
+        max_consecutive_gated=tuning.max_consecutive_gated,
+        delay_s=setup.measurements.analyzer_delay_s,
+        history_margin_s=tuning.history_margin_s,
+        rules=np.vstack(
+            [setup.temp_rules.vector(), setup.jacket_rules.vector(), setup.conc_rules.vector()]
+        ),
+    )
+
+
+class KernelOutput(NamedTuple):
+    """What the kernel records per sample (arrays over all samples of all batches)."""
+
+    x: FloatArray
+    var: FloatArray
+    cov_temp_conc: FloatArray
+    reasons: np.ndarray
+    """(N, 3) int8: the temperature's, jacket's and analyzer's :class:`Reason`"""
+    conc_nis: FloatArray
+    flags: np.ndarray
+    jacket_temp_k: FloatArray
+
+    @classmethod
+    def empty(cls, samples: int, n: int) -> KernelOutput:
+        return cls(
+            x=np.full((samples, n), np.nan),
+            var=np.full((samples, n), np.nan),
+            cov_temp_conc=np.full(samples, np.nan),
+            reasons=np.zeros((samples, 3), dtype=np.int8),
+            conc_nis=np.full(samples, np.nan),
+            flags=np.zeros(samples, dtype=np.int8),
+            jacket_temp_k=np.full(samples, np.nan),
+        )
+
+
+class Workspace(NamedTuple):
+    """Scratch arrays of one batch's run (allocated once per batch, not per step)."""
+
+    x: FloatArray
+    P: FloatArray
+    sig: FloatArray
+    sigf: FloatArray
+    scaled: FloatArray
+    chol: FloatArray
+    q: FloatArray
+    slope: FloatArray
+    h: FloatArray
+    gain: FloatArray
+
+
+@numba.njit(cache=True)
+def _workspace(n: int) -> Workspace:
+    points = 2 * n + 1
+    return Workspace(
+        np.empty(n),
+        np.empty((n, n)),
+        np.empty((points, n)),
+        np.empty((points, n)),
+        np.empty((n, n)),
+        np.empty((n, n)),
+        np.empty((n, n)),
+        np.empty(n),
+        np.empty(points),
+        np.empty(n),
+    )
+
+
+@numba.njit(cache=True)
+def _cholesky_upper(a: FloatArray, u: FloatArray) -> bool:
+    """Upper-triangular ``u`` with ``u.T @ u = a`` (as ``scipy.linalg.cholesky``); False when
+    ``a`` is not positive-definite."""
+    n = a.shape[0]
+    u[:, :] = 0.0
+    for j in range(n):
+        s = a[j, j]
+        for k in range(j):
+            s -= u[k, j] * u[k, j]
+        if not s > 0.0:
+            return False
+        d = math.sqrt(s)
+        u[j, j] = d
+        for i in range(j + 1, n):
+            t = a[j, i]
+            for k in range(j):
+                t -= u[k, j] * u[k, i]
+            u[j, i] = t / d
+    return True
+
+
+@numba.njit(cache=True)
+def _sigma_points(x, P, spread, w: Workspace, out) -> bool:
+    """Merwe's sigma points of (x, P) into ``out`` (2n+1, n), as filterpy orders them."""
+    n = x.shape[0]
+    for i in range(n):
+        for j in range(n):
+            w.scaled[i, j] = spread * P[i, j]
+    u = w.chol
+    if not _cholesky_upper(w.scaled, u):
+        return False
+    for j in range(n):
+        out[0, j] = x[j]
+    for k in range(n):
+        for j in range(n):
+            out[k + 1, j] = x[j] + u[k, j]
+            out[n + k + 1, j] = x[j] - u[k, j]
+    return True
+
+
+@numba.njit(cache=True)
+def _predict(dt, jacket, s: KernelSetup, w: Workspace) -> bool:
+    """filterpy's UKF ``predict`` on ``w.x``, ``w.P``: propagate sigma points, unscented
+    transform plus Q, redraw the sigma points into ``w.sigf``."""
+    x, P, sig, sigf = w.x, w.P, w.sig, w.sigf
+    n = x.shape[0]
+    process_noise_into(x, dt, jacket, s.params, s.table, s.noise, w.q, w.slope)
+    if not _sigma_points(x, P, s.spread, w, sig):
+        return False
+    count = 2 * n + 1
+    for i in range(count):
+        if i == n or i == 2 * n:
+            continue  # the bias-only pair: its propagation is the mean's (module docstring)
+        step_into(sig[i], dt, jacket, s.params, s.table, sigf[i], w.slope)
+    for i in (n, 2 * n):
+        sigf[i, :] = sigf[0, :]
+        sigf[i, n - 1] = sig[i, n - 1]
+    for j in range(n):
+        acc = 0.0
+        for i in range(count):
+            acc += s.wm[i] * sigf[i, j]
+        x[j] = acc
+    for a in range(n):
+        for b in range(a, n):
+            acc = 0.0
+            for i in range(count):
+                acc += s.wc[i] * (sigf[i, a] - x[a]) * (sigf[i, b] - x[b])
+            P[a, b] = acc + w.q[a, b]
+            P[b, a] = P[a, b]
+    return _sigma_points(x, P, s.spread, w, sigf)
+
+
+@numba.njit(cache=True)
+def _measured(state, channel: int, n: int) -> float:
+    if channel == SIGNAL_TEMP:
+        return state[TEMP]
+    return state[CONC] + state[n - 1]
+
+
+@numba.njit(cache=True)
+def _innovation(x, P, z, channel: int, r: float) -> tuple[float, float]:
+    n = x.shape[0]
+    y = z - _measured(x, channel, n)
+    if channel == SIGNAL_TEMP:
+        var = P[TEMP, TEMP] + r
+    else:
+        b = n - 1
+        var = P[CONC, CONC] + 2.0 * P[CONC, b] + P[b, b] + r
+    return y, var
+
+
+@numba.njit(cache=True)
+def _update(z, channel: int, r: float, s: KernelSetup, w: Workspace) -> None:
+    """filterpy's UKF ``update`` of ``w.x``, ``w.P`` for one scalar, linear measurement."""
+    x, P, sigf, h, gain = w.x, w.P, w.sigf, w.h, w.gain
+    n = x.shape[0]
+    count = 2 * n + 1
+    zp = 0.0
+    for i in range(count):
+        h[i] = _measured(sigf[i], channel, n)
+        zp += s.wm[i] * h[i]
+    var = r
+    for i in range(count):
+        var += s.wc[i] * (h[i] - zp) * (h[i] - zp)
+    gain[:] = 0.0
+    for i in range(count):
+        dz = s.wc[i] * (h[i] - zp)
+        for j in range(n):
+            gain[j] += (sigf[i, j] - x[j]) * dz
+    for j in range(n):
+        gain[j] /= var
+    y = z - zp
+    for j in range(n):
+        x[j] += gain[j] * y
+    for a in range(n):
+        for b in range(a, n):
+            mean = 0.5 * ((P[a, b] - gain[a] * var * gain[b]) + (P[b, a] - gain[b] * var * gain[a]))
+            P[a, b] = mean
+            P[b, a] = mean
+
+
+@numba.njit(cache=True)
+def _seed(s: KernelSetup, w: Workspace) -> bool:
+    for k in range(4):
+        w.x[ZETA0 + k] += s.seed_zeta[k]
+    w.P[:, :] += s.seed_cov
+    return _sigma_points(w.x, w.P, s.spread, w, w.sigf)
+
+
+@numba.njit(cache=True)
+def _run_event(e, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P, s, w) -> tuple[int, bool]:
+    """Process event ``e`` from event ``e - 1``'s posterior (``CrystallizerFilter._run``).
+    Returns (error code, temperature gated)."""
+    x, P = w.x, w.P
+    x[:] = ev_x[e - 1]
+    P[:, :] = ev_P[e - 1]
+    if not _predict(ev_t[e] - ev_t[e - 1], ev_u[e - 1], s, w):
+        return ERROR_NOT_PD, False
+    if ev_seed[e] and not _seed(s, w):
+        return ERROR_NOT_PD, False
+    gated = False
+    if not math.isnan(ev_temp[e]):
+        y, var = _innovation(x, P, ev_temp[e], SIGNAL_TEMP, s.r_temp)
+        if y * y / var > s.gate_nis:
+            gated = True
+        else:
+            _update(ev_temp[e], SIGNAL_TEMP, s.r_temp, s, w)
+    if not math.isnan(ev_conc[e]):
+        _update(ev_conc[e], SIGNAL_CONC, s.r_conc, s, w)
+    for j in range(x.shape[0]):
+        if not math.isfinite(x[j]):
+            return ERROR_NOT_FINITE, gated
+    ev_x[e] = x
+    ev_P[e] = P
+    return ERROR_NONE, gated
+
+
+@numba.njit(cache=True)
+def _shift(first, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P):
+    """Drop the ``first`` oldest events."""
+    keep = count - first
+    for e in range(keep):
+        ev_t[e] = ev_t[e + first]
+        ev_u[e] = ev_u[e + first]
+        ev_temp[e] = ev_temp[e + first]
+        ev_conc[e] = ev_conc[e + first]
+        ev_seed[e] = ev_seed[e + first]
+        ev_x[e] = ev_x[e + first]
+        ev_P[e] = ev_P[e + first]
+    return keep
+
+
+@numba.njit(cache=True)
+def _insert(at, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P):
+    """Open a slot at index ``at``, moving the later events up by one."""
+    for e in range(count, at, -1):
+        ev_t[e] = ev_t[e - 1]
+        ev_u[e] = ev_u[e - 1]
+        ev_temp[e] = ev_temp[e - 1]
+        ev_conc[e] = ev_conc[e - 1]
+        ev_seed[e] = ev_seed[e - 1]
+        ev_x[e] = ev_x[e - 1]
+        ev_P[e] = ev_P[e - 1]
+    return count + 1
+
+
+@numba.njit(cache=True)
+def filter_batch(
+    time_s,
+    values,
+    severities,
+    source_s,
+    present,
+    seeded_phase,
+    n: int,
+    s: KernelSetup,
+    capacity: int,
+    out_x,
+    out_var,
+    out_ctc,
+    out_reasons,
+    out_nis,
+    out_flags,
+    out_jacket,
+) -> tuple[int, int]:
+    """Run one batch (``SoftSensor.step`` on every sample). Arrays are the batch's: ``time_s``
+    (N,) [s]; ``values``, ``severities``, ``source_s``, ``present`` (3, N) for temperature,
+    jacket and analyzer; ``seeded_phase`` (N,) the phase is a seeded one. Returns (error code,
+    sample index); ``ERROR_NONE`` and -1 when all went well."""
+    samples = time_s.shape[0]
+    ev_t = np.empty(capacity)
+    ev_u = np.empty(capacity)
+    ev_temp = np.empty(capacity)
+    ev_conc = np.empty(capacity)
+    ev_seed = np.zeros(capacity, dtype=np.bool_)
+    ev_x = np.empty((capacity, n))
+    ev_P = np.empty((capacity, n, n))
+    count = 0
+    base = 0
+    w = _workspace(n)
+    x, P = w.x, w.P
+    states = np.zeros((3, N_STATE))
+    accepted = np.full(3, math.nan)
+    accepted_at = np.full(3, -math.inf)
+    seeded = False
+    gated_run = 0
+    for k in range(samples):
+        t = time_s[k]
+        reasons = np.full(3, _MISSING)
+        for signal in range(3):
+            if present[signal, k]:
+                code = check_reading(
+                    states[signal],
+                    t,
+                    values[signal, k],
+                    severities[signal, k],
+                    source_s[signal, k],
+                    s.rules[signal],
+                )
+                reasons[signal] = code
+                if code == 0:
+                    accepted[signal] = values[signal, k]
+                    accepted_at[signal] = t
+        entering_seed = not seeded and seeded_phase[k] and s.seed_load > 0.0
+        nis = math.nan
+        widened = False
+        started = count > 0
+        jacket = accepted[SIGNAL_JACKET]
+        if not started:
+            if reasons[SIGNAL_TEMP] == 0 and reasons[SIGNAL_CONC] == 0 and not math.isnan(jacket):
+                x0, p0 = initial_state(accepted[SIGNAL_TEMP], accepted[SIGNAL_CONC], s.init, n)
+                ev_t[0] = t
+                ev_u[0] = jacket
+                ev_temp[0] = math.nan
+                ev_conc[0] = math.nan
+                ev_seed[0] = False
+                ev_x[0] = x0
+                ev_P[0] = p0
+                count = 1
+                started = True
+                if entering_seed:
+                    ev_t[1] = t
+                    ev_u[1] = jacket
+                    ev_temp[1] = math.nan
+                    ev_conc[1] = math.nan
+                    ev_seed[1] = True
+                    count = 2
+                    error, _ = _run_event(
+                        1,
+                        ev_t,
+                        ev_u,
+                        ev_temp,
+                        ev_conc,
+                        ev_seed,
+                        ev_x,
+                        ev_P,
+                        s,
+                        w,
+                    )
+                    if error != ERROR_NONE:
+                        return error, k
+                    seeded = True
+        else:
+            if count >= capacity:
+                count = _shift(base, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P)
+                base = 0
+                if count >= capacity:
+                    return ERROR_HISTORY_FULL, k
+            ev_t[count] = t
+            ev_u[count] = jacket
+            ev_temp[count] = accepted[SIGNAL_TEMP] if reasons[SIGNAL_TEMP] == 0 else math.nan
+            ev_conc[count] = math.nan
+            ev_seed[count] = entering_seed
+            count += 1
+            error, gated = _run_event(
+                count - 1,
+                ev_t,
+                ev_u,
+                ev_temp,
+                ev_conc,
+                ev_seed,
+                ev_x,
+                ev_P,
+                s,
+                w,
+            )
+            if error != ERROR_NONE:
+                return error, k
+            seeded = seeded or entering_seed
+            if gated:
+                reasons[SIGNAL_TEMP] = _GATED
+            # prune (CrystallizerFilter._prune)
+            keep_from = t - s.delay_s - s.history_margin_s
+            # (the dropped events stay in the arrays until they are needed: ``base`` is the first
+            # kept one, and the arrays are compacted only when full)
+            while base + 1 < count and ev_t[base + 1] <= keep_from:
+                base += 1
+            if reasons[SIGNAL_CONC] == 0:
+                drawn = t - s.delay_s
+                anchor = -1
+                for e in range(count - 1, base - 1, -1):
+                    if ev_t[e] <= drawn:
+                        anchor = e
+                        break
+                if anchor < 0:
+                    reasons[SIGNAL_CONC] = _BEFORE_HISTORY
+                else:
+                    x[:] = ev_x[anchor]
+                    P[:, :] = ev_P[anchor]
+                    if not _predict(drawn - ev_t[anchor], ev_u[anchor], s, w):
+                        return ERROR_NOT_PD, k
+                    force = gated_run >= s.max_consecutive_gated
+                    if force:
+                        widen(P, x, s.init)
+                        if not _sigma_points(x, P, s.spread, w, w.sigf):
+                            return ERROR_NOT_PD, k
+                        widened = True
+                    z = accepted[SIGNAL_CONC]
+                    y, var = _innovation(x, P, z, SIGNAL_CONC, s.r_conc)
+                    nis = y * y / var
+                    if nis > s.gate_nis and not force:
+                        gated_run += 1
+                        reasons[SIGNAL_CONC] = _GATED
+                    else:
+                        gated_run = 0
+                        _update(z, SIGNAL_CONC, s.r_conc, s, w)
+                        if count >= capacity:
+                            kept = _shift(
+                                base, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P
+                            )
+                            anchor -= count - kept
+                            count, base = kept, 0
+                            if count >= capacity:
+                                return ERROR_HISTORY_FULL, k
+                        count = _insert(
+                            anchor + 1, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P
+                        )
+                        slot = anchor + 1
+                        ev_t[slot] = drawn
+                        ev_u[slot] = ev_u[anchor]
+                        ev_temp[slot] = math.nan
+                        ev_conc[slot] = z
+                        ev_seed[slot] = False
+                        ev_x[slot] = x
+                        ev_P[slot] = P
+                        for e in range(slot + 1, count):
+                            error, _ = _run_event(
+                                e,
+                                ev_t,
+                                ev_u,
+                                ev_temp,
+                                ev_conc,
+                                ev_seed,
+                                ev_x,
+                                ev_P,
+                                s,
+                                w,
+                            )
+                            if error != ERROR_NONE:
+                                return error, k
+        for signal in range(3):
+            out_reasons[k, signal] = reasons[signal]
+        out_nis[k] = nis
+        flags = 0
+        if started:
+            last = count - 1
+            out_x[k] = ev_x[last]
+            for j in range(n):
+                out_var[k, j] = ev_P[last, j, j]
+            out_ctc[k] = ev_P[last, TEMP, CONC]
+            out_jacket[k] = jacket
+            flags |= FLAG_STARTED
+        if seeded:
+            flags |= FLAG_SEEDED
+        if widened:
+            flags |= FLAG_WIDENED
+        if t - accepted_at[SIGNAL_TEMP] > s.rules[SIGNAL_TEMP, R_STALE]:
+            flags |= FLAG_TEMP_STALE
+        if t - accepted_at[SIGNAL_JACKET] > s.rules[SIGNAL_JACKET, R_STALE]:
+            flags |= FLAG_JACKET_STALE
+        if t - accepted_at[SIGNAL_CONC] > s.rules[SIGNAL_CONC, R_STALE]:
+            flags |= FLAG_CONC_STALE
+        out_flags[k] = flags
+    return ERROR_NONE, -1
+
+
+@numba.njit(cache=True, parallel=True)
+def filter_batches(
+    offsets,
+    time_s,
+    values,
+    severities,
+    source_s,
+    present,
+    seeded_phase,
+    n: int,
+    s: KernelSetup,
+    capacity,
+    out: KernelOutput,
+    errors,
+) -> None:
+    """:func:`filter_batch` on every batch; batch ``b`` is samples ``offsets[b]:offsets[b+1]``
+    of the flat arrays. Batches run on numba's threads (``numba.set_num_threads``); ``errors``
+    (batches, 2) receives each batch's error code and sample index."""
+    for b in numba.prange(offsets.shape[0] - 1):
+        lo, hi = offsets[b], offsets[b + 1]
+        code, at = filter_batch(
+            time_s[lo:hi], values[:, lo:hi], severities[:, lo:hi], source_s[:, lo:hi],
+            present[:, lo:hi], seeded_phase[lo:hi], n, s, capacity[b], out.x[lo:hi],
+            out.var[lo:hi], out.cov_temp_conc[lo:hi], out.reasons[lo:hi], out.conc_nis[lo:hi],
+            out.flags[lo:hi], out.jacket_temp_k[lo:hi],
+        )  # fmt: skip
+        errors[b, 0] = code
+        errors[b, 1] = at
+
+
+class BatchArrays(NamedTuple):
+    """One batch's samples as arrays (what a replay reader builds, in sigmatrack's units).
+
+    Attributes
+    ----------
+    time_s : (N,) sample times [s], increasing
+    values : (3, N) temperature [K], jacket temperature [K], analyzer [kg/kg]
+    severities : (3, N) int8 StatusCode severities (:class:`sensor.samples.Severity`)
+    source_s : (3, N) source times [s], NaN when unknown
+    present : (3, N) bool, a reading arrived
+    seeded_phase : (N,) bool, the batch is in a seeded phase
+    """
+
+    time_s: FloatArray
+    values: FloatArray
+    severities: np.ndarray
+    source_s: FloatArray
+    present: np.ndarray
+    seeded_phase: np.ndarray
+
+    @classmethod
+    def from_samples(cls, samples: Sequence[Sample], seeded_phases: frozenset[str]) -> BatchArrays:
+        """Arrays of a list of samples (tests and small replays)."""
+        count = len(samples)
+        values = np.full((3, count), np.nan)
+        severities = np.zeros((3, count), dtype=np.int8)
+        source = np.full((3, count), np.nan)
+        present = np.zeros((3, count), dtype=np.bool_)
+        for k, sample in enumerate(samples):
+            for signal, reading in enumerate((sample.temp, sample.jacket_temp, sample.conc)):
+                if reading is None:
+                    continue
+                present[signal, k] = True
+                values[signal, k] = reading.value
+                severities[signal, k] = severity(reading.status_code)
+                if reading.source_time_s is not None:
+                    source[signal, k] = reading.source_time_s
+        return cls(
+            time_s=np.array([sample.time_s for sample in samples], dtype=float),
+            values=values,
+            severities=severities,
+            source_s=source,
+            present=present,
+            seeded_phase=np.array([sample.phase in seeded_phases for sample in samples]),
+        )
+
+
+def history_capacity(time_s: FloatArray, delay_s: float, margin_s: float) -> int:
+    """Room for the kernel's history of a batch sampled at ``time_s`` [s]: the samples in the
+    longest window of ``delay_s + margin_s`` (plus one), each possibly followed by an analyzer
+    event, twice over, so that the arrays are compacted only now and then."""
+    span = delay_s + margin_s
+    ends = np.searchsorted(time_s, time_s + span, side="right")
+    widest = int(np.max(ends - np.arange(len(time_s)))) if len(time_s) else 0
+    return 4 * (widest + 2) + 8
+
+
+class KernelError(SigmatrackError, ArithmeticError):
+    """The kernel stopped on a batch (the covariance stopped being positive-definite, the state
+    stopped being finite, or the history overflowed)."""
+
+    def __init__(self, batch: int, code: int, sample: int) -> None:
+        what = {
+            ERROR_NOT_PD: "the covariance is not positive-definite",
+            ERROR_NOT_FINITE: "the state is not finite",
+            ERROR_HISTORY_FULL: "the filter's history overflowed",
+        }[code]
+        self.batch, self.code, self.sample = batch, code, sample
+        super().__init__(f"batch {batch}, sample {sample}: {what}")
+
+
+def run_batches(
+    setup: UnitSetup, batches: Sequence[BatchArrays], threads: int = 1
+) -> list[KernelOutput | KernelError]:
+    """Run the soft sensor on many batches of one unit at once; one output (or the error that
+    stopped it) per batch, in order."""
+    s = kernel_setup(setup)
+    n = setup.model.layout.size
+    lengths = np.array([len(b.time_s) for b in batches], dtype=np.int64)
+    offsets = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+    total = int(offsets[-1])
+    out = KernelOutput.empty(total, n)
+    capacity = np.array(
+        [history_capacity(b.time_s, s.delay_s, s.history_margin_s) for b in batches],
+        dtype=np.int64,
+    )
+    errors = np.zeros((len(batches), 2), dtype=np.int64)
+    if batches:
+        time_s = np.concatenate([b.time_s for b in batches])
+        values = np.concatenate([b.values for b in batches], axis=1)
+        severities = np.concatenate([b.severities for b in batches], axis=1)
+        source = np.concatenate([b.source_s for b in batches], axis=1)
+        present = np.concatenate([b.present for b in batches], axis=1)
+        seeded = np.concatenate([b.seeded_phase for b in batches])
+        previous = numba.get_num_threads()
+        numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
+        try:
+            filter_batches(
+                offsets, time_s, values, severities, source, present, seeded, n, s, capacity,
+                out, errors,
+            )  # fmt: skip
+        finally:
+            numba.set_num_threads(previous)
+    results: list[KernelOutput | KernelError] = []
+    for b in range(len(batches)):
+        lo, hi = int(offsets[b]), int(offsets[b + 1])
+        if errors[b, 0] != ERROR_NONE:
+            results.append(KernelError(b, int(errors[b, 0]), int(errors[b, 1])))
+        else:
+            results.append(KernelOutput(*(field[lo:hi] for field in out)))
+    return results
