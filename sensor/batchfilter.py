@@ -42,8 +42,8 @@ from sensor.kalman import (
     widen,
 )
 from sensor.numerics import FloatArray
-from sensor.samples import Sample, severity
-from sensor.softsensor import UnitSetup
+from sensor.samples import GOOD, Reading, Sample, severity
+from sensor.softsensor import SoftSensor, UnitSetup
 from sensor.validation import N_STATE, R_STALE, check_reading
 
 # Flags recorded per sample (bits of ``flags``).
@@ -581,7 +581,34 @@ def filter_batch(
     return ERROR_NONE, -1
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True)
+def _filter_one(
+    b,
+    offsets,
+    time_s,
+    values,
+    severities,
+    source_s,
+    present,
+    seeded_phase,
+    n,
+    s,
+    capacity,
+    out,
+    errors,
+):
+    lo, hi = offsets[b], offsets[b + 1]
+    code, at = filter_batch(
+        time_s[lo:hi], values[:, lo:hi], severities[:, lo:hi], source_s[:, lo:hi],
+        present[:, lo:hi], seeded_phase[lo:hi], n, s, capacity[b], out.x[lo:hi],
+        out.var[lo:hi], out.cov_temp_conc[lo:hi], out.reasons[lo:hi], out.conc_nis[lo:hi],
+        out.flags[lo:hi], out.jacket_temp_k[lo:hi],
+    )  # fmt: skip
+    errors[b, 0] = code
+    errors[b, 1] = at
+
+
+@numba.njit(cache=True)
 def filter_batches(
     offsets,
     time_s,
@@ -590,25 +617,66 @@ def filter_batches(
     source_s,
     present,
     seeded_phase,
-    n: int,
-    s: KernelSetup,
+    n,
+    s,
     capacity,
-    out: KernelOutput,
+    out,
     errors,
-) -> None:
-    """:func:`filter_batch` on every batch; batch ``b`` is samples ``offsets[b]:offsets[b+1]``
-    of the flat arrays. Batches run on numba's threads (``numba.set_num_threads``); ``errors``
-    (batches, 2) receives each batch's error code and sample index."""
+):
+    """:func:`filter_batch` on every batch, one after the other; batch ``b`` is samples
+    ``offsets[b]:offsets[b+1]`` of the flat arrays; ``errors`` (batches, 2) receives each batch's
+    error code and sample index."""
+    for b in range(offsets.shape[0] - 1):
+        _filter_one(
+            b,
+            offsets,
+            time_s,
+            values,
+            severities,
+            source_s,
+            present,
+            seeded_phase,
+            n,
+            s,
+            capacity,
+            out,
+            errors,
+        )
+
+
+@numba.njit(cache=True, parallel=True)
+def filter_batches_threaded(
+    offsets,
+    time_s,
+    values,
+    severities,
+    source_s,
+    present,
+    seeded_phase,
+    n,
+    s,
+    capacity,
+    out,
+    errors,
+):
+    """:func:`filter_batches` with the batches spread over numba's threads (compiled on first
+    use, which takes a while)."""
     for b in numba.prange(offsets.shape[0] - 1):
-        lo, hi = offsets[b], offsets[b + 1]
-        code, at = filter_batch(
-            time_s[lo:hi], values[:, lo:hi], severities[:, lo:hi], source_s[:, lo:hi],
-            present[:, lo:hi], seeded_phase[lo:hi], n, s, capacity[b], out.x[lo:hi],
-            out.var[lo:hi], out.cov_temp_conc[lo:hi], out.reasons[lo:hi], out.conc_nis[lo:hi],
-            out.flags[lo:hi], out.jacket_temp_k[lo:hi],
-        )  # fmt: skip
-        errors[b, 0] = code
-        errors[b, 1] = at
+        _filter_one(
+            b,
+            offsets,
+            time_s,
+            values,
+            severities,
+            source_s,
+            present,
+            seeded_phase,
+            n,
+            s,
+            capacity,
+            out,
+            errors,
+        )
 
 
 class BatchArrays(NamedTuple):
@@ -705,15 +773,19 @@ def run_batches(
         source = np.concatenate([b.source_s for b in batches], axis=1)
         present = np.concatenate([b.present for b in batches], axis=1)
         seeded = np.concatenate([b.seeded_phase for b in batches])
-        previous = numba.get_num_threads()
-        numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
-        try:
-            filter_batches(
-                offsets, time_s, values, severities, source, present, seeded, n, s, capacity,
-                out, errors,
-            )  # fmt: skip
-        finally:
-            numba.set_num_threads(previous)
+        arguments = (
+            offsets, time_s, values, severities, source, present, seeded, n, s, capacity, out,
+            errors,
+        )  # fmt: skip
+        if threads > 1:
+            previous = numba.get_num_threads()
+            numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+            try:
+                filter_batches_threaded(*arguments)
+            finally:
+                numba.set_num_threads(previous)
+        else:
+            filter_batches(*arguments)
     results: list[KernelOutput | KernelError] = []
     for b in range(len(batches)):
         lo, hi = int(offsets[b]), int(offsets[b + 1])
@@ -722,3 +794,60 @@ def run_batches(
         else:
             results.append(KernelOutput(*(field[lo:hi] for field in out)))
     return results
+
+
+def to_samples(batch: BatchArrays, seeded_phase_name: str = "seed") -> list[Sample]:
+    """The samples of a batch's arrays (the per-sample path's input; ``seeded_phase`` becomes the
+    phase ``seeded_phase_name``, or None)."""
+    samples = []
+    for k, t in enumerate(batch.time_s):
+        readings = []
+        for signal in range(3):
+            if not batch.present[signal, k]:
+                readings.append(None)
+                continue
+            source = batch.source_s[signal, k]
+            readings.append(
+                Reading(
+                    float(batch.values[signal, k]),
+                    SEVERITY_CODES[int(batch.severities[signal, k])],
+                    None if math.isnan(source) else float(source),
+                )
+            )
+        phase = seeded_phase_name if batch.seeded_phase[k] else None
+        samples.append(Sample(float(t), *readings, phase=phase))
+    return samples
+
+
+SEVERITY_CODES = (GOOD, 0x40000000, 0x80000000)
+"""A StatusCode of each severity (``Good``, ``Uncertain``, ``Bad``)."""
+
+
+def run_per_sample(setup: UnitSetup, batch: BatchArrays) -> KernelOutput | SigmatrackError:
+    """What :func:`run_batches` records, from :class:`SoftSensor` on filterpy (the reference
+    path, and the one an EKF site replays through)."""
+    sensor = SoftSensor(setup)
+    n = setup.model.layout.size
+    out = KernelOutput.empty(len(batch.time_s), n)
+    seeded_name = next(iter(setup.seeded_phases), "seed")
+    try:
+        for k, sample in enumerate(to_samples(batch, seeded_name)):
+            result = sensor.step(sample)
+            out.reasons[k] = [result.temp, result.jacket_temp, result.conc]
+            out.conc_nis[k] = result.conc_nis
+            flags = 0
+            if result.started:
+                flags |= FLAG_STARTED
+                out.x[k] = sensor.filter.x
+                out.var[k] = np.diag(sensor.filter.P)
+                out.cov_temp_conc[k] = sensor.filter.P[TEMP, CONC]
+                out.jacket_temp_k[k] = sensor.jacket_temp_k
+            flags |= FLAG_SEEDED if result.seeded else 0
+            flags |= FLAG_WIDENED if result.widened else 0
+            flags |= FLAG_TEMP_STALE if result.temp_stale else 0
+            flags |= FLAG_JACKET_STALE if result.jacket_stale else 0
+            flags |= FLAG_CONC_STALE if result.conc_stale else 0
+            out.flags[k] = flags
+    except SigmatrackError as error:
+        return error
+    return out

@@ -39,9 +39,9 @@ def severity(status_code: int) -> Severity:
 
     Examples
     --------
-    >>> severity(0x80320000).name  # BadSensorFailure
+    >>> severity(0x808C0000).name  # BadSensorFailure
     'BAD'
-    >>> severity(0x408F0000).name  # UncertainLastUsableValue
+    >>> severity(0x40900000).name  # UncertainLastUsableValue
     'UNCERTAIN'
     """
     bits = (int(status_code) >> 30) & 0b11

@@ -163,6 +163,11 @@ class SoftSensor:
         self._seeded = False
         self._seed_load = float(setup.seed_zeta[ZETA3 - 2])
 
+    @property
+    def jacket_temp_k(self) -> float:
+        """The jacket temperature held as the model's input [K] (NaN before the first)."""
+        return self._jacket.value
+
     def step(self, sample: Sample) -> StepResult:
         """Validate, filter and report one sample.
 

@@ -10,14 +10,15 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from asyncua.ua.status_codes import StatusCodes
 
 from sensor.crystallizer import CONC, GROWTH_SCALE, TEMP, ZETA0, ZETA3, step
 from sensor.samples import GOOD, Reading, Sample
 from sensor.softsensor import UnitSetup
 from sensor.units import ZERO_CELSIUS_K
 
-BAD_SENSOR_FAILURE = 0x80320000  # OPC UA StatusCode BadSensorFailure (Part 4/8)
-UNCERTAIN_LAST_USABLE = 0x408F0000  # OPC UA StatusCode UncertainLastUsableValue
+BAD_SENSOR_FAILURE = StatusCodes.BadSensorFailure  # OPC UA StatusCodes, from asyncua's table
+UNCERTAIN_LAST_USABLE = StatusCodes.UncertainLastUsableValue
 JACKET_NOISE_STD_K = 0.02  # the jacket transmitter's noise; the noisy value is the model input
 
 
@@ -138,3 +139,37 @@ def with_faults(samples: list[Sample], rng: np.random.Generator) -> list[Sample]
 
 
 __all__ = ["GOOD", "SyntheticBatch", "cooling_batch", "with_faults"]
+
+
+def write_historian_csv(
+    path, samples: list[Sample], unit, conc_per_kg_per_kg: float = 100.0, batch_id: str = "B1"
+) -> None:
+    """Write samples as a historian CSV with the unit's tag names (temperatures in °C, the
+    analyzer in g/100g by default: ``conc_per_kg_per_kg`` is the factor from kg/kg)."""
+    from datetime import UTC, datetime
+
+    from asyncua.ua.status_codes import code_to_name_doc
+
+    tags = unit.tags
+    analog = [("temp", 0), ("jacket_temp", 1), ("conc", 2)]
+    header = ["timestamp"]
+    for signal, _ in analog:
+        header += [tags[signal].name, f"{tags[signal].name}.quality"]
+    header += [tags["phase"].name, tags["batch_id"].name]
+    phase_values = unit.phase_values
+    lines = ["# synthetic batch for tests", ",".join(header)]
+    for sample in samples:
+        stamp = datetime.fromtimestamp(1.7e9 + sample.time_s, UTC).isoformat(
+            timespec="milliseconds"
+        )
+        cells = [stamp.replace("+00:00", "Z")]
+        for reading in (sample.temp, sample.jacket_temp, sample.conc):
+            if reading is None:
+                cells += ["", ""]
+                continue
+            is_conc = reading is sample.conc
+            value = reading.value * conc_per_kg_per_kg if is_conc else reading.value - 273.15
+            cells += [repr(float(value)), code_to_name_doc[reading.status_code][0]]
+        cells += [str(phase_values[sample.phase]) if sample.phase else "", batch_id]
+        lines.append(",".join(cells))
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
