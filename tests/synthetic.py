@@ -8,6 +8,7 @@ simulator's truth. Every random draw takes an explicit numpy Generator.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cache
 
 import numpy as np
 from asyncua.ua.status_codes import StatusCodes
@@ -173,3 +174,27 @@ def write_historian_csv(
         cells += [str(phase_values[sample.phase]) if sample.phase else "", batch_id]
         lines.append(",".join(cells))
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+@cache
+def demo_site_and_zone():
+    """The demo site file and its fitted metastable zone (fitted once per test session)."""
+    from sensor.shell.config import load_site_file
+    from sensor.shell.sitesensor import site_zone
+    from tests.conftest import DEMO_SITE
+
+    site = load_site_file(DEMO_SITE)
+    return site, site_zone(site)
+
+
+def demo_setup(**tuning_changes) -> UnitSetup:
+    """The demo unit's soft-sensor setup, with filter tuning changed as given."""
+    from dataclasses import replace
+
+    from sensor.shell.sitesensor import unit_setup
+
+    site, zone = demo_site_and_zone()
+    setup = unit_setup(site, 0, zone)
+    if tuning_changes:
+        setup = replace(setup, tuning=replace(setup.tuning, **tuning_changes))
+    return setup
