@@ -307,7 +307,8 @@ def initial_state(
 ) -> tuple[FloatArray, FloatArray]:
     """Prior mean and covariance at the first valid sample: measured temperature, the analyzer
     value as the concentration (bias 0), no crystals, :math:`\\theta = 1`; ``n`` is the state
-    size (8 with :math:`\\theta`)."""
+    size (8 with :math:`\\theta`). The concentration's prior is the analyzer value less the
+    (unknown) bias, so the two are correlated."""
     x = np.zeros(n)
     x[TEMP] = temp_k
     x[CONC] = conc_measured
@@ -318,7 +319,14 @@ def initial_state(
         x[GROWTH_SCALE] = 1.0
         std[GROWTH_SCALE] = init[I_GROWTH_SCALE]
     std[n - 1] = init[I_BIAS]
-    return x, np.diag(std**2)
+    P = np.diag(std**2)
+    # The first analyzer value measured c + b: c = z - b - e with the bias b and the error e
+    # (initial_conc_rel_std) independent, so c's prior carries the bias's variance, negatively
+    # correlated with it.
+    P[CONC, CONC] += init[I_BIAS] ** 2
+    P[CONC, n - 1] = -(init[I_BIAS] ** 2)
+    P[n - 1, CONC] = -(init[I_BIAS] ** 2)
+    return x, P
 
 
 @numba.njit(cache=True)

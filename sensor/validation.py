@@ -13,8 +13,11 @@ reason              rule
 ``out-of-range``    the value is outside the configured range
 ``frozen``          the value has not changed (exactly) for ``frozen_after_s`` or longer: a
                     flat-lined transmitter or a held analyzer output
-``rate-of-change``  the change from the last accepted value is faster than ``max_rate`` (per
-                    second; reactor temperature only)
+``rate-of-change``  the change since a reference reading is more than ``max_rate`` times the
+                    time since then plus the noise allowance ``spike_delta``; the reference
+                    moves to the latest accepted reading every ``rate_window_s`` (so noise on
+                    fast samples cannot trip it, and a drift faster than ``max_rate`` does;
+                    reactor temperature only)
 ``spike``           the value jumps from the last accepted one by more than ``spike_delta``; a
                     second value that agrees with the first (within ``spike_delta``) confirms a
                     real step and is accepted, so a step costs one sample and a spike is dropped
@@ -69,11 +72,12 @@ REASON_LABELS = tuple(r.label for r in Reason)
 
 # Indices into a rule vector.
 R_LOW, R_HIGH, R_MAX_RATE, R_SPIKE, R_STALE, R_FROZEN, R_ACCEPT_UNCERTAIN = range(7)
-N_RULES = 7
+R_RATE_WINDOW = 7
+N_RULES = 8
 # Indices into a signal's state vector.
 S_HAS_RAW, S_RAW, S_CHANGED_AT, S_HAS_ACCEPTED, S_ACCEPTED, S_ACCEPTED_AT = range(6)
-S_PENDING, S_PENDING_VALUE = 6, 7
-N_STATE = 8
+S_PENDING, S_PENDING_VALUE, S_REFERENCE, S_REFERENCE_AT = 6, 7, 8, 9
+N_STATE = 10
 
 
 @dataclass(frozen=True)
@@ -84,7 +88,9 @@ class SignalRules:
     ----------
     low, high : accepted range [K or kg/kg]
     max_rate_per_s : fastest accepted change [unit/s]; ``inf`` to skip the rule
-    spike_delta : largest accepted jump between accepted values [unit]; ``inf`` to skip
+    spike_delta : largest accepted jump between accepted values [unit], also the rate rule's
+        noise allowance; ``inf`` to skip both rules
+    rate_window_s : how often the rate rule's reference moves on [s]
     stale_after_s : oldest accepted source age [s]
     frozen_after_s : longest accepted run of identical values [s]
     accept_uncertain : let Uncertain StatusCodes through
@@ -97,11 +103,18 @@ class SignalRules:
     stale_after_s: float = 120.0
     frozen_after_s: float = 300.0
     accept_uncertain: bool = False
+    rate_window_s: float = 60.0
 
     def __post_init__(self) -> None:
         if not self.low < self.high:
             raise ValueError(f"range must be low < high; got [{self.low}, {self.high}]")
-        for name in ("max_rate_per_s", "spike_delta", "stale_after_s", "frozen_after_s"):
+        for name in (
+            "max_rate_per_s",
+            "spike_delta",
+            "stale_after_s",
+            "frozen_after_s",
+            "rate_window_s",
+        ):
             if not getattr(self, name) > 0.0:
                 raise ValueError(f"{name} must be positive; got {getattr(self, name)}")
 
@@ -115,6 +128,7 @@ class SignalRules:
         rules[R_STALE] = self.stale_after_s
         rules[R_FROZEN] = self.frozen_after_s
         rules[R_ACCEPT_UNCERTAIN] = 1.0 if self.accept_uncertain else 0.0
+        rules[R_RATE_WINDOW] = self.rate_window_s
         return rules
 
 
@@ -162,10 +176,11 @@ def check_reading(
     if time_s - state[S_CHANGED_AT] >= rules[R_FROZEN]:
         return 6
     if state[S_HAS_ACCEPTED] > 0.5:
-        jump = abs(value - state[S_ACCEPTED])
-        elapsed = time_s - state[S_ACCEPTED_AT]
-        if elapsed > 0.0 and jump > rules[R_MAX_RATE] * elapsed:
+        drift = abs(value - state[S_REFERENCE])
+        allowed = rules[R_MAX_RATE] * (time_s - state[S_REFERENCE_AT]) + rules[R_SPIKE]
+        if drift > allowed:
             return 7
+        jump = abs(value - state[S_ACCEPTED])
         if jump > rules[R_SPIKE]:
             confirmed = (
                 state[S_PENDING] > 0.5 and abs(value - state[S_PENDING_VALUE]) <= rules[R_SPIKE]
@@ -175,6 +190,9 @@ def check_reading(
                 state[S_PENDING_VALUE] = value
                 return 8
     state[S_PENDING] = 0.0
+    if state[S_HAS_ACCEPTED] < 0.5 or time_s - state[S_REFERENCE_AT] >= rules[R_RATE_WINDOW]:
+        state[S_REFERENCE] = value
+        state[S_REFERENCE_AT] = time_s
     state[S_HAS_ACCEPTED] = 1.0
     state[S_ACCEPTED] = value
     state[S_ACCEPTED_AT] = time_s

@@ -180,6 +180,7 @@ class ValidationConfig:
         default=(-30.0, 150.0), metadata=check(ascending_pair)
     )
     max_temp_rate_k_per_min: float = field(default=10.0, metadata=check(positive))
+    rate_window_s: float = field(default=60.0, metadata=check(positive))
     spike_threshold_std: float = field(default=6.0, metadata=check(positive))
     accept_uncertain: bool = False
 

@@ -114,6 +114,7 @@ def unit_setup(site: SiteConfig, index: int, zone: MetastableZone) -> UnitSetup:
     temp_lo, temp_hi = (v + ZERO_CELSIUS_K for v in rules.temp_range_c)
     common = {"stale_after_s": rules.stale_after_s, "frozen_after_s": rules.frozen_after_s}
     common["accept_uncertain"] = rules.accept_uncertain
+    common["rate_window_s"] = rules.rate_window_s
     conc_lo, conc_hi = unit.analyzer.range
     seed = (
         seed_moments(
