@@ -10,8 +10,11 @@ holds the two to 1e-9 in every state), but fused into one numba kernel per batch
 - the two sigma points that differ from the mean only in the analyzer bias (the last state, whose
   row of the Cholesky factor has a single entry) are not propagated: the model ignores the bias,
   so their propagation equals the mean's, bit for bit;
-- the measurements are scalar and linear, so predicted measurements and cross-covariances are
-  sums over the sigma points without temporaries;
+- sigma points share the mean's temperature and concentration in all but the first two
+  directions, so the kinetics (the logarithms and powers) are computed for five of them
+  (:func:`sensor.crystallizer.step_points`), bit for bit as the per-point calls would;
+- the measurements are scalar and linear, so the update is the closed form, to which
+  filterpy's sigma-point sums are equal up to rounding (no second Cholesky factor per step);
 - batches are independent, so :func:`filter_batches` can spread them over threads.
 
 It records, per sample, the state, its variances and the temperature-concentration covariance
@@ -30,14 +33,14 @@ from typing import NamedTuple
 import numba
 import numpy as np
 
-from sensor.crystallizer import CONC, TEMP, ZETA0, step_into
+from sensor.crystallizer import CONC, TEMP, ZETA0, step_points
 from sensor.errors import SigmatrackError
 from sensor.kalman import (
     initial_state,
     initial_vector,
     merwe_weights,
+    noise_from_rates,
     noise_vector,
-    process_noise_into,
     seed_covariance,
     widen,
 )
@@ -155,11 +158,16 @@ class Workspace(NamedTuple):
     slope: FloatArray
     h: FloatArray
     gain: FloatArray
+    skip: np.ndarray
+    mean_slope: FloatArray
 
 
 @numba.njit(cache=True)
 def _workspace(n: int) -> Workspace:
     points = 2 * n + 1
+    skip = np.zeros(points, dtype=np.bool_)
+    skip[n] = True
+    skip[2 * n] = True
     return Workspace(
         np.empty(n),
         np.empty((n, n)),
@@ -170,6 +178,8 @@ def _workspace(n: int) -> Workspace:
         np.empty((n, n)),
         np.empty(n),
         np.empty(points),
+        np.empty(n),
+        skip,
         np.empty(n),
     )
 
@@ -221,14 +231,14 @@ def _predict(dt, jacket, s: KernelSetup, w: Workspace) -> bool:
     transform plus Q, redraw the sigma points into ``w.sigf``."""
     x, P, sig, sigf = w.x, w.P, w.sig, w.sigf
     n = x.shape[0]
-    process_noise_into(x, dt, jacket, s.params, s.table, s.noise, w.q, w.slope)
     if not _sigma_points(x, P, s.spread, w, sig):
         return False
     count = 2 * n + 1
-    for i in range(count):
-        if i == n or i == 2 * n:
-            continue  # the bias-only pair: its propagation is the mean's (module docstring)
-        step_into(sig[i], dt, jacket, s.params, s.table, sigf[i], w.slope)
+    # the bias-only pair is not propagated: its propagation is the mean's (module docstring)
+    step_points(sig, w.skip, dt, jacket, s.params, s.table, sigf, w.slope, w.mean_slope)
+    w.q[:, :] = 0.0
+    if dt > 0.0:  # Q from the mean's rates, as process_noise computes it
+        noise_from_rates(w.mean_slope, dt, s.noise, w.q)
     for i in (n, 2 * n):
         sigf[i, :] = sigf[0, :]
         sigf[i, n - 1] = sig[i, n - 1]
@@ -244,7 +254,7 @@ def _predict(dt, jacket, s: KernelSetup, w: Workspace) -> bool:
                 acc += s.wc[i] * (sigf[i, a] - x[a]) * (sigf[i, b] - x[b])
             P[a, b] = acc + w.q[a, b]
             P[b, a] = P[a, b]
-    return _sigma_points(x, P, s.spread, w, sigf)
+    return True
 
 
 @numba.njit(cache=True)
@@ -268,32 +278,30 @@ def _innovation(x, P, z, channel: int, r: float) -> tuple[float, float]:
 
 @numba.njit(cache=True)
 def _update(z, channel: int, r: float, s: KernelSetup, w: Workspace) -> None:
-    """filterpy's UKF ``update`` of ``w.x``, ``w.P`` for one scalar, linear measurement."""
-    x, P, sigf, h, gain = w.x, w.P, w.sigf, w.h, w.gain
+    """filterpy's UKF ``update`` of ``w.x``, ``w.P`` for one scalar, linear measurement
+    :math:`z = h^\\top x + v`. The unscented transform of a linear function reproduces its mean
+    and covariance exactly, so this is the closed form, :math:`S = h^\\top P h + r`,
+    :math:`K = P h / S`, :math:`x \\leftarrow x + K (z - h^\\top x)`,
+    :math:`P \\leftarrow P - K S K^\\top`, equal to filterpy's sigma-point sums to rounding."""
+    x, P, gain = w.x, w.P, w.gain
     n = x.shape[0]
-    count = 2 * n + 1
-    zp = 0.0
-    for i in range(count):
-        h[i] = _measured(sigf[i], channel, n)
-        zp += s.wm[i] * h[i]
-    var = r
-    for i in range(count):
-        var += s.wc[i] * (h[i] - zp) * (h[i] - zp)
-    gain[:] = 0.0
-    for i in range(count):
-        dz = s.wc[i] * (h[i] - zp)
+    b = n - 1
+    if channel == SIGNAL_TEMP:
         for j in range(n):
-            gain[j] += (sigf[i, j] - x[j]) * dz
+            gain[j] = P[j, TEMP]
+    else:
+        for j in range(n):
+            gain[j] = P[j, CONC] + P[j, b]
+    y, var = _innovation(x, P, z, channel, r)
     for j in range(n):
         gain[j] /= var
-    y = z - zp
     for j in range(n):
         x[j] += gain[j] * y
     for a in range(n):
-        for b in range(a, n):
-            mean = 0.5 * ((P[a, b] - gain[a] * var * gain[b]) + (P[b, a] - gain[b] * var * gain[a]))
-            P[a, b] = mean
-            P[b, a] = mean
+        for c in range(a, n):
+            value = P[a, c] - gain[a] * var * gain[c]
+            P[a, c] = value
+            P[c, a] = value
 
 
 @numba.njit(cache=True)
@@ -301,7 +309,7 @@ def _seed(s: KernelSetup, w: Workspace) -> bool:
     for k in range(4):
         w.x[ZETA0 + k] += s.seed_zeta[k]
     w.P[:, :] += s.seed_cov
-    return _sigma_points(w.x, w.P, s.spread, w, w.sigf)
+    return True
 
 
 @numba.njit(cache=True)
@@ -401,9 +409,10 @@ def filter_batch(
     accepted_at = np.full(3, -math.inf)
     seeded = False
     gated_run = 0
+    reasons = np.empty(3, dtype=np.int64)
     for k in range(samples):
         t = time_s[k]
-        reasons = np.full(3, _MISSING)
+        reasons[:] = _MISSING
         for signal in range(3):
             if present[signal, k]:
                 code = check_reading(
@@ -509,8 +518,6 @@ def filter_batch(
                     force = gated_run >= s.max_consecutive_gated
                     if force:
                         widen(P, x, s.init)
-                        if not _sigma_points(x, P, s.spread, w, w.sigf):
-                            return ERROR_NOT_PD, k
                         widened = True
                     z = accepted[SIGNAL_CONC]
                     y, var = _innovation(x, P, z, SIGNAL_CONC, s.r_conc)

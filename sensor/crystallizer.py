@@ -323,35 +323,61 @@ def c_sat_from_table(temp_k: float, params: FloatArray, table: FloatArray) -> tu
 
 
 @numba.njit(cache=True)
-def rates(
-    x: FloatArray, jacket_temp_k: float, params: FloatArray, table: FloatArray, out: FloatArray
-) -> None:
-    """Write :math:`dx/dt` (the module's equations) into ``out``; ``x`` is one state vector."""
-    temp = x[TEMP]
-    c_sat, _ = c_sat_from_table(temp, params, table)
-    sigma = x[CONC] / c_sat - 1.0
-    scale = x[GROWTH_SCALE] if params[P_HAS_GROWTH_SCALE] > 0.5 else 1.0
+def kinetics(
+    temp_k: float, conc: float, params: FloatArray, table: FloatArray
+) -> tuple[float, float, float, bool]:
+    """The part of the rates that depends only on :math:`(T, c)`: :math:`\\sigma`, the growth
+    rate before :math:`\\theta` [m/s], :math:`k_b \\sigma^b` [1/(kg s)] and whether
+    :math:`\\sigma > 0` (growth, scaled by :math:`\\theta`) or not (dissolution)."""
+    c_sat, _ = c_sat_from_table(temp_k, params, table)
+    sigma = conc / c_sat - 1.0
     if sigma > 0.0:
-        # powers through one logarithm (this function runs 2n+1 times per filter step)
+        # powers through one logarithm (this runs for every sigma point of every step)
         log_sigma = math.log(sigma)
-        growth = scale * params[P_GROWTH_K] * math.exp(params[P_GROWTH_ORDER] * log_sigma)
+        growth = params[P_GROWTH_K] * math.exp(params[P_GROWTH_ORDER] * log_sigma)
         birth = params[P_NUCLEATION_K] * math.exp(params[P_NUCLEATION_ORDER] * log_sigma)
-        exponent = params[P_SOLIDS_EXPONENT]
+        return sigma, growth, birth, True
+    return sigma, params[P_DISSOLUTION_K] * sigma, 0.0, False
+
+
+@numba.njit(cache=True)
+def rates_with(
+    x: FloatArray,
+    jacket_temp_k: float,
+    growth_base: float,
+    birth_base: float,
+    growing: bool,
+    params: FloatArray,
+    out: FloatArray,
+) -> None:
+    """:func:`rates` from the :func:`kinetics` of ``x``'s temperature and concentration."""
+    growth = growth_base
+    if growing and params[P_HAS_GROWTH_SCALE] > 0.5:
+        growth *= x[GROWTH_SCALE]
+    birth = birth_base
+    exponent = params[P_SOLIDS_EXPONENT]
+    if growing:
         if exponent == 1.0:
             birth *= max(x[ZETA3], 0.0)
         elif exponent != 0.0:
             birth *= max(x[ZETA3], 0.0) ** exponent
-    else:
-        growth = params[P_DISSOLUTION_K] * sigma
-        birth = 0.0
     gamma = growth / MOMENT_SIZE_SCALE_M
     out[:] = 0.0
-    out[TEMP] = params[P_HEAT_RATE] * (jacket_temp_k - temp)
+    out[TEMP] = params[P_HEAT_RATE] * (jacket_temp_k - x[TEMP])
     out[ZETA0] = params[P_NUCLEUS_MASS] * birth
     out[ZETA1] = gamma * x[ZETA0]
     out[ZETA2] = 2.0 * gamma * x[ZETA1]
     out[ZETA3] = 3.0 * gamma * x[ZETA2]
     out[CONC] = -out[ZETA3]
+
+
+@numba.njit(cache=True)
+def rates(
+    x: FloatArray, jacket_temp_k: float, params: FloatArray, table: FloatArray, out: FloatArray
+) -> None:
+    """Write :math:`dx/dt` (the module's equations) into ``out``; ``x`` is one state vector."""
+    _, growth, birth, growing = kinetics(x[TEMP], x[CONC], params, table)
+    rates_with(x, jacket_temp_k, growth, birth, growing, params, out)
 
 
 @numba.njit(cache=True)
@@ -435,6 +461,57 @@ def step_into(
         rates(out, jacket_temp_k, params, table, slope)
         for i in range(x.shape[0]):
             out[i] += h * slope[i]
+
+
+@numba.njit(cache=True)
+def step_points(
+    points: FloatArray,
+    skip: np.ndarray,
+    dt: float,
+    jacket_temp_k: float,
+    params: FloatArray,
+    table: FloatArray,
+    out: FloatArray,
+    slope: FloatArray,
+    first_slope: FloatArray,
+) -> None:
+    """:func:`step_into` on every row of ``points`` not marked in ``skip``, into ``out``, bit for
+    bit the same, but computing :func:`kinetics` only for a temperature and concentration not
+    seen in the first row or the last computed one (sigma points share them with the mean in all
+    but the first two directions, so most rows reuse the mean's). Row 0 must not be skipped;
+    its rates at the start (:func:`rates` of ``points[0]``) go to ``first_slope``."""
+    count, n = points.shape
+    for i in range(count):
+        if not skip[i]:
+            out[i, :] = points[i]
+    if dt <= 0.0:
+        return
+    steps = substeps(dt, params[P_MAX_STEP])
+    h = dt / steps
+    for sub in range(steps):
+        # two remembered (T, c): the first row's (the mean's) and the last computed
+        first_temp, first_conc = out[0, TEMP], out[0, CONC]
+        _, first_growth, first_birth, first_growing = kinetics(
+            first_temp, first_conc, params, table
+        )
+        last_temp, last_conc = first_temp, first_conc
+        growth, birth, growing = first_growth, first_birth, first_growing
+        for i in range(count):
+            if skip[i]:
+                continue
+            row = out[i]
+            if row[TEMP] == first_temp and row[CONC] == first_conc:
+                g, b, grows = first_growth, first_birth, first_growing
+            else:
+                if not (row[TEMP] == last_temp and row[CONC] == last_conc):
+                    _, growth, birth, growing = kinetics(row[TEMP], row[CONC], params, table)
+                    last_temp, last_conc = row[TEMP], row[CONC]
+                g, b, grows = growth, birth, growing
+            rates_with(row, jacket_temp_k, g, b, grows, params, slope)
+            if sub == 0 and i == 0:
+                first_slope[:] = slope
+            for j in range(n):
+                row[j] += h * slope[j]
 
 
 @numba.njit(cache=True)

@@ -192,11 +192,18 @@ def process_noise_into(
 ) -> None:
     """Diagonal process-noise covariance :math:`Q` over ``dt`` [s] at the mean ``x``, into
     ``q`` (n, n); ``slope`` is scratch."""
-    n = x.shape[0]
     q[:, :] = 0.0
     if dt <= 0.0:
         return
     rates(x, jacket_temp_k, params, table, slope)
+    noise_from_rates(slope, dt, noise, q)
+
+
+@numba.njit(cache=True)
+def noise_from_rates(slope: FloatArray, dt: float, noise: FloatArray, q: FloatArray) -> None:
+    """:func:`process_noise_into` given the mean's rates ``slope`` (its state-dependent part
+    scales with them), into ``q``, which must be zero."""
+    n = slope.shape[0]
     kinetic = noise[Q_ERROR_TIME] * dt
     q[TEMP, TEMP] = noise[Q_TEMP] ** 2 * dt
     q[CONC, CONC] = noise[Q_CONC] ** 2 * dt + (noise[Q_GROWTH_REL] * slope[CONC]) ** 2 * kinetic
