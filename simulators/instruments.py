@@ -110,7 +110,9 @@ class Channel:
             draw = self._rng.random(2)
             if draw[0] < self.sample_interval_s / every_s:
                 value += math.copysign(size_std * self.noise_std, draw[1] - 0.5)
-        value = round(value / self.resolution) * self.resolution
+        # quantized, then rounded so that the decimal text is the resolution's (52.37, not
+        # 52.370000000000005)
+        value = round(round(value / self.resolution) * self.resolution, 12)
         low, high = self.value_range
         status = GOOD
         if not low <= value <= high:

@@ -116,6 +116,17 @@ class PlantTruth:
     analyzer_bias: float
 
 
+def _generators(seed: int) -> dict[str, np.random.Generator]:
+    """One independent generator per random thing, all fixed by ``seed``."""
+    children = np.random.default_rng(seed).spawn(len(_STREAMS))
+    return dict(zip(_STREAMS, children, strict=True))
+
+
+def seeded_mismatch(seed: int, kinetics_fraction: float, solubility_offset_k: float) -> Mismatch:
+    """The mismatch a batch with ``seed`` draws for these bounds (:meth:`Mismatch.draw`)."""
+    return Mismatch.draw(_generators(seed)["mismatch"], kinetics_fraction, solubility_offset_k)
+
+
 def _steps(value_s: float, dt_s: float, key: str, site: SiteConfig) -> int:
     steps = value_s / dt_s
     if abs(steps - round(steps)) > 1e-9 * max(1.0, steps):
@@ -152,8 +163,7 @@ class PlantSimulation:
         self.start = start
         self.dt_s = settings.sample_interval_s
         self.step_index = 0
-        streams = dict(zip(_STREAMS, np.random.default_rng(seed).spawn(len(_STREAMS)), strict=True))
-        self._streams = streams
+        streams = _generators(seed)
 
         fit = fit_site_solubility(site)
         zone = site_metastable_zone(site, fit)
@@ -346,9 +356,8 @@ class PlantSimulation:
                     f"no unit {unit_id!r} in {site.path} (units: {known})"
                 ) from None
         if mismatch is None:
-            rng = np.random.default_rng(seed).spawn(len(_STREAMS))[0]
-            mismatch = Mismatch.draw(
-                rng, settings.mismatch.kinetics_fraction, settings.mismatch.solubility_offset_k
+            mismatch = seeded_mismatch(
+                seed, settings.mismatch.kinetics_fraction, settings.mismatch.solubility_offset_k
             )
         start = settings.start if start is None else start
         if start.tzinfo is None:
