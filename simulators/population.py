@@ -11,16 +11,18 @@ and, while crystals dissolve (:math:`G < 0`), they leave the grid at :math:`L = 
 vanish first. The grid is uniform, :math:`N` cells of width :math:`\Delta L` from 0 to
 :math:`L_{max}`; the state is the count :math:`N_i = n_i \Delta L` of crystals per kg solvent in
 each cell, and a crystal in cell :math:`i` has the cell's centre size :math:`L_i`. One explicit
-step moves counts across cell faces with the upwind value corrected by van Leer's limiter [2]_
-(second order where the distribution is smooth, no new extrema, non-negative counts) under the
-Courant condition :math:`|G|\,\Delta t / \Delta L \le 1/2`:
+step moves counts across cell faces with the upwind value plus the Lax-Wendroff correction
+limited by van Leer's limiter [2]_ [3]_ (second order in space and time where the distribution
+is smooth, no new extrema, non-negative counts) under the Courant condition
+:math:`|G|\,\Delta t / \Delta L \le 1/2`:
 
 .. math:: N_i^{+} = N_i - \nu_{i+1/2} N_{i+1/2} + \nu_{i-1/2} N_{i-1/2}, \qquad
-          N_{i+1/2} = N_i + \frac{a b}{a + b}\ \ (ab > 0), \qquad
+          N_{i+1/2} = N_i + (1 - \nu_{i+1/2}) \frac{a b}{a + b}\ \ (ab > 0), \qquad
           a = N_i - N_{i-1},\ b = N_{i+1} - N_i
 
 with :math:`\nu = G \Delta t / \Delta L` at the face. The face at :math:`L_{max}` is closed
-(the grid must be large enough). Counts are conserved exactly by the flux form; the crystal
+(the grid must be large enough); crystals dissolving through :math:`L = 0` leave at the upwind
+(first-order) value. Counts are conserved exactly by the flux form; the crystal
 mass of the discrete distribution, :math:`\rho_c k_v \sum_i N_i L_i^3`, is what the solute
 balance takes its solute from (:mod:`simulators.crystallizer`).
 
@@ -31,6 +33,8 @@ References
 .. [2] B. van Leer, "Towards the ultimate conservative difference scheme. II. Monotonicity and
    conservation combined in a second-order scheme", J. Comput. Phys. 14 (1974) 361-370.
    doi:10.1016/0021-9991(74)90019-9
+.. [3] P. K. Sweby, "High resolution schemes using flux limiters for hyperbolic conservation
+   laws", SIAM J. Numer. Anal. 21 (1984) 995-1011. doi:10.1137/0721062
 """
 
 from __future__ import annotations
@@ -124,9 +128,10 @@ def growth_step(counts: FloatArray, courant: FloatArray) -> FloatArray:
     product = backward * forward
     slope = np.zeros_like(product)
     np.divide(product, backward + forward, out=slope, where=product > 0.0)
-    flux = courant[1:] * (counts + slope)
-    if not shrinking:
-        flux[-1] = 0.0
+    flux = courant[1:] * (counts + (1.0 - courant[1:]) * slope)
+    # The face at L_max is closed; crystals leave through L = 0 at the upwind value (a limited
+    # value against an empty ghost cell would hold them back).
+    flux[-1] = courant[-1] * counts[-1] if shrinking else 0.0
     updated = counts - flux
     updated[1:] += flux[:-1]
     return updated[::-1] if shrinking else updated

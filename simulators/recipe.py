@@ -134,6 +134,7 @@ class Recipe:
         self.settings = settings
         self.phase = "idle"
         self.phase_start_s = 0.0
+        self.time_s = 0.0
         self.setpoint_k = start_temp_k
         self.remote_active = False
         self.finished = False
@@ -169,6 +170,7 @@ class Recipe:
     ) -> RecipeOutput:
         """One DCS scan at ``time_s`` [s], ``dt_s`` [s] after the last, with the measured
         reactor temperature [K] (``None`` if not usable) and the advisor's inputs."""
+        self.time_s = time_s
         if inputs.heartbeat != self._heartbeat:
             if self._heartbeat is not None:
                 self._heartbeat_seen_s = time_s
