@@ -83,7 +83,6 @@ def test_dissolution_removes_the_fines_first():
 
 
 def test_a_step_beyond_the_courant_limit_is_refused():
-    grid = SizeGrid(10, 1e-4)
     with pytest.raises(ValueError, match=r"Courant number 0.6 above 0.5"):
         growth_step(np.ones(10), np.full(11, 0.6))
 
