@@ -24,17 +24,16 @@ def demo_settings(demo_site: SiteConfig) -> SimulatorSettings:
 def shortened(settings: SimulatorSettings, **recipe_changes: object) -> SimulatorSettings:
     """The demo settings with a recipe of short holds (about 2.5 h of batch), changed further
     by ``recipe_changes``."""
-    recipe = dataclasses.replace(
-        settings.recipe,
-        idle_s=10.0,
-        dissolve_hold_s=600.0,
-        seed_hold_s=300.0,
-        cooling_duration_s=3600.0,
-        cooling_max_s=5400.0,
-        final_hold_s=600.0,
-        discharge_s=60.0,
-        **recipe_changes,
-    )
+    short = {
+        "idle_s": 10.0,
+        "dissolve_hold_s": 600.0,
+        "seed_hold_s": 300.0,
+        "cooling_duration_s": 3600.0,
+        "cooling_max_s": 5400.0,
+        "final_hold_s": 600.0,
+        "discharge_s": 60.0,
+    }
+    recipe = dataclasses.replace(settings.recipe, **(short | recipe_changes))
     return dataclasses.replace(settings, recipe=recipe)
 
 
