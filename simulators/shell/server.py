@@ -57,6 +57,14 @@ CELSIUS_UNIT_ID = (ord("C") << 16) | (ord("E") << 8) | ord("L")
 """UNECE Recommendation 20 code ``CEL`` (degree Celsius) as an OPC UA UnitId (Part 8, 5.6.3)."""
 UNECE_URI = "http://www.opcfoundation.org/UA/units/un/cefact"
 
+_PLACEHOLDERS: dict[ua.VariantType, object] = {
+    ua.VariantType.Double: 0.0,
+    ua.VariantType.Boolean: False,
+    ua.VariantType.Int32: 0,
+    ua.VariantType.String: "",
+}
+"""A value of each type to create a variable with, before its first sample."""
+
 _log = logging.getLogger(__name__)
 
 
@@ -249,7 +257,8 @@ class PlantServer:
                     await (await node.get_child("0:EngineeringUnits")).write_value(info)
                     await (await node.get_child("0:EURange")).write_value(value_range)
                 else:
-                    node = await folder.add_variable(node_id, name, None, types[signal])
+                    placeholder = _PLACEHOLDERS[types[signal]]
+                    node = await folder.add_variable(node_id, name, placeholder, types[signal])
                 if signal in INPUT_SIGNALS:
                     await node.set_writable()
                 nodes[signal] = node
