@@ -91,7 +91,8 @@ async def _check_reads(client, plant, server):
     assert abs(value.SourceTimestamp - server.clock.now()) < timedelta(seconds=20)
     assert value.SourceTimestamp > plant.start + timedelta(seconds=3600)
     units = await (await temp.get_child("0:EngineeringUnits")).read_value()
-    assert units.UnitId == CELSIUS_UNIT_ID and units.DisplayName.Text == "°C"
+    assert units.UnitId == CELSIUS_UNIT_ID
+    assert units.DisplayName.Text == "°C"
     assert await (await temp.get_child("0:EURange")).read_value() == ua.Range(-20.0, 120.0)
     conc_units = await (await conc.get_child("0:EngineeringUnits")).read_value()
     assert conc_units.DisplayName.Text == "g/100g"

@@ -16,7 +16,7 @@ from simulators.settings import SimulatorSettings, read_simulator_settings
 from tests.conftest import DEMO_SITE
 
 DEMO_TEXT = DEMO_SITE.read_text(encoding="utf-8")
-SIMULATOR_TEXT = DEMO_TEXT[DEMO_TEXT.index("[simulator]") :]
+SIMULATOR_TEXT = DEMO_TEXT[DEMO_TEXT.index("[simulator]") : DEMO_TEXT.index("[[unit]]")]
 
 
 def _classes(cls, seen):
@@ -98,7 +98,7 @@ def test_bad_simulator_keys_are_refused_naming_the_key(old, new, message):
 
 
 def test_recipe_temperatures_outside_the_solubility_data_are_refused():
-    site = _site("final_temp_c = 10.0                       # controlled", "final_temp_c = -20.0 #")
+    site = _site("final_temp_c = 10                         # controlled", "final_temp_c = -20.0 #")
     with pytest.raises(
         SiteConfigError, match=r"simulator\.recipe\.final_temp_c: -20 °C is outside"
     ):
