@@ -98,7 +98,7 @@ def test_bad_simulator_keys_are_refused_naming_the_key(old, new, message):
 
 
 def test_recipe_temperatures_outside_the_solubility_data_are_refused():
-    site = _site("final_temp_c = 10                         # controlled", "final_temp_c = -20.0 #")
+    site = _site("final_temp_c = 10.0                       # controlled", "final_temp_c = -20.0 #")
     with pytest.raises(
         SiteConfigError, match=r"simulator\.recipe\.final_temp_c: -20 °C is outside"
     ):
