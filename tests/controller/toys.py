@@ -97,24 +97,30 @@ class ToyCrystallizer:
         return -growth * (mass / self.seed_mass) ** (2.0 / 3.0) * (conc - c_sat)
 
     def _integrate(self, times_s, temp_path_k, growth):
-        """Concentration at ``times_s`` along each path (explicit midpoint rule)."""
+        """Concentration at ``times_s`` along each path (explicit midpoint rule, sub-steps of
+        at most ``substep_s`` between consecutive output times)."""
         paths = np.atleast_2d(temp_path_k)
         knots = np.concatenate([[0.0], times_s])
         temps = np.column_stack([np.full(len(paths), self.temp_k), paths])
+        counts = np.maximum(1, np.ceil(np.diff(knots) / self.substep_s - 1e-9).astype(int))
+        # sub-step starts, and which output each sub-step ends on
+        pieces = zip(knots[:-1], knots[1:], counts, strict=True)
+        starts = np.concatenate([k0 + (k1 - k0) * np.arange(n) / n for k0, k1, n in pieces])
+        ends = np.append(starts[1:], knots[-1])
+        last_of_output = np.cumsum(counts) - 1
+        # all paths share the knots: one set of interpolation weights for every row
+        temp_start = _interp_columns(starts, knots, temps)
+        temp_mid = _interp_columns(0.5 * (starts + ends), knots, temps)
         growth = np.asarray(growth, dtype=float).reshape(-1, 1)
         conc = np.full((growth.shape[0], len(paths)), self.conc)
         out = np.empty((growth.shape[0], len(paths), len(times_s)))
-        t = 0.0
-        for j, t_next in enumerate(times_s):
-            while t < t_next - 1e-9:
-                h = min(self.substep_s, t_next - t)
-                temp_a = _interp_rows(t, knots, temps)
-                temp_m = _interp_rows(t + h / 2, knots, temps)
-                k1 = self._rate(conc, temp_a, growth)
-                conc_m = conc + h / 2 * k1
-                conc = conc + h * self._rate(conc_m, temp_m, growth)
-                t += h
-            out[:, :, j] = conc
+        output = 0
+        for i, h in enumerate(ends - starts):
+            k1 = self._rate(conc, temp_start[:, i], growth)
+            conc = conc + h * self._rate(conc + 0.5 * h * k1, temp_mid[:, i], growth)
+            if i == last_of_output[output]:
+                out[:, :, output] = conc
+                output += 1
         return out
 
     def predict_sigma(self, times_s, temp_path_k):
@@ -136,9 +142,9 @@ class ToyCrystallizer:
         self.temp_k = temp_end_k
 
 
-def _interp_rows(t, knots, rows):
-    """Linear interpolation at time ``t`` of each row of ``rows`` given at ``knots``."""
-    j = int(np.clip(np.searchsorted(knots, t, side="right") - 1, 0, len(knots) - 2))
+def _interp_columns(t, knots, rows):
+    """Linear interpolation of each row of ``rows`` (given at ``knots``) at the times ``t``."""
+    j = np.clip(np.searchsorted(knots, t, side="right") - 1, 0, len(knots) - 2)
     w = (t - knots[j]) / (knots[j + 1] - knots[j])
     return (1.0 - w) * rows[:, j] + w * rows[:, j + 1]
 
