@@ -17,7 +17,7 @@ import math
 from dataclasses import dataclass
 
 from controller.alarms import AlarmDefinition, AlarmEngine, Direction, Priority
-from controller.errors import SettingsError
+from controller.errors import SettingsError, check_fields
 
 ADVISORY_NOTE = (
     "sigmatrack is advisory: it never drives a valve, a pump or the jacket. The DCS keeps the "
@@ -71,19 +71,25 @@ class AlarmSettings:
     heating_phases: frozenset[str] = frozenset()
 
     def __post_init__(self) -> None:
-        owner = type(self).__name__
-        for name in ("sigma_high_fraction", "deadband_fraction", "drift_limit_fraction"):
-            value = getattr(self, name)
-            if not 0.0 < value < 1.0:
-                raise SettingsError(owner, name, f"must be in (0, 1); got {value}")
-        for name in ("shelve_max_s", "tracking_error_k"):
-            value = getattr(self, name)
-            if not (math.isfinite(value) and value > 0.0):
-                raise SettingsError(owner, name, f"must be positive; got {value}")
+        fraction, positive = "must be in (0, 1)", "must be positive"
+        check_fields(
+            self,
+            (
+                ("sigma_high_fraction", 0.0 < self.sigma_high_fraction < 1.0, fraction),
+                ("deadband_fraction", 0.0 < self.deadband_fraction < 1.0, fraction),
+                ("drift_limit_fraction", 0.0 < self.drift_limit_fraction < 1.0, fraction),
+                ("on_delay_s", self.on_delay_s >= 0.0, "must be 0 or more"),
+                ("off_delay_s", self.off_delay_s >= 0.0, "must be 0 or more"),
+                ("shelve_max_s", self.shelve_max_s > 0.0, positive),
+                ("tracking_error_k", self.tracking_error_k > 0.0, positive),
+            ),
+        )
         low, high = self.seed_window_fraction
         if not 0.0 < low < high < 1.0:
             raise SettingsError(
-                owner, "seed_window_fraction", f"must be 0 < low < high < 1; got {low, high}"
+                type(self).__name__,
+                "seed_window_fraction",
+                f"must be 0 < low < high < 1; got {low, high}",
             )
 
 
@@ -126,14 +132,16 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
     """The alarm set, with its limits, delays, phases and help texts."""
     s = settings
     delays = {"on_delay_s": s.on_delay_s, "off_delay_s": s.off_delay_s}
-    zone = {"direction": Direction.HIGH, "deadband": s.deadband_fraction, **delays}
-    flag = {"direction": Direction.HIGH, "limit": 0.5, **delays}
+
+    def high(limit: float, deadband: float) -> dict:
+        return {"direction": Direction.HIGH, "limit": limit, "deadband": deadband, **delays}
+
+    flag = high(0.5, 0.0)
     growth = GROWTH_PHASES - s.heating_phases
     return (
         AlarmDefinition(
             "sigma-high",
             Priority.MEDIUM,
-            limit=s.sigma_high_fraction,
             applies_in=PROCESS_PHASES,
             meaning=(
                 f"Supersaturation is approaching the metastable limit (above "
@@ -145,12 +153,11 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
                 "plausibly. Slower cooling, or a hold, lets the crystals take up the excess: "
                 "decide it in the DCS by the site's procedure."
             ),
-            **zone,
+            **high(s.sigma_high_fraction, s.deadband_fraction),
         ),
         AlarmDefinition(
             "sigma-high-high",
             Priority.HIGH,
-            limit=1.0,
             applies_in=PROCESS_PHASES,
             meaning=(
                 "Supersaturation is at or beyond the metastable limit: nucleation is likely "
@@ -161,7 +168,7 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
                 "cooling in the DCS as the recipe prescribes; check the jacket, the seed "
                 "charge and the lab data behind the solubility curve and the zone."
             ),
-            **zone,
+            **high(1.0, s.deadband_fraction),
         ),
         AlarmDefinition(
             "undersaturated",
@@ -234,9 +241,6 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
         AlarmDefinition(
             "analyzer-drift",
             Priority.LOW,
-            direction=Direction.HIGH,
-            limit=s.drift_limit_fraction,
-            deadband=s.deadband_fraction * s.drift_limit_fraction,
             applies_in=BATCH_PHASES,
             meaning=(
                 "The soft sensor estimates that the analyzer reads off by more than "
@@ -244,7 +248,7 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
                 "a fouled probe."
             ),
             response="Compare with a lab sample; check the calibration model and the probe.",
-            **delays,
+            **high(s.drift_limit_fraction, s.deadband_fraction * s.drift_limit_fraction),
         ),
         AlarmDefinition(
             "estimate-inconsistent",
@@ -264,9 +268,6 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
         AlarmDefinition(
             "temperature-not-following",
             Priority.MEDIUM,
-            direction=Direction.HIGH,
-            limit=s.tracking_error_k,
-            deadband=s.deadband_fraction * s.tracking_error_k,
             applies_in=BATCH_PHASES,
             meaning=(
                 f"The reactor temperature is more than {s.tracking_error_k:g} K from the "
@@ -276,7 +277,7 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
                 "Check the jacket (utility temperature and flow, valve position), the "
                 "temperature controller's mode, and whether the DCS has taken the setpoint."
             ),
-            **delays,
+            **high(s.tracking_error_k, s.deadband_fraction * s.tracking_error_k),
         ),
         AlarmDefinition(
             "solubility-extrapolated",

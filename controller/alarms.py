@@ -222,23 +222,28 @@ class _Alarm:
             beyond, clear = value <= d.limit, value > d.limit + d.deadband
         if not self.active:
             self.off_since = None
-            if not beyond:
-                self.on_since = None
-                return None
-            self.on_since = time_s if self.on_since is None else self.on_since
-            if time_s - self.on_since >= d.on_delay_s:
+            self.on_since, done = _timer(self.on_since, beyond, time_s, d.on_delay_s)
+            if done:
                 self.active, self.on_since = True, None
                 return True
             return None
         self.on_since = None
-        if not clear:
-            self.off_since = None
-            return None
-        self.off_since = time_s if self.off_since is None else self.off_since
-        if time_s - self.off_since >= d.off_delay_s:
+        self.off_since, done = _timer(self.off_since, clear, time_s, d.off_delay_s)
+        if done:
             self.active, self.off_since = False, None
             return False
         return None
+
+
+def _timer(
+    since_s: float | None, holds: bool, time_s: float, delay_s: float
+) -> tuple[float | None, bool]:
+    """Start, keep or drop the timer of a condition: (its start, whether it has held for
+    ``delay_s``)."""
+    if not holds:
+        return None, False
+    since_s = time_s if since_s is None else since_s
+    return since_s, time_s - since_s >= delay_s
 
 
 class AlarmEngine:

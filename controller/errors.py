@@ -10,6 +10,9 @@ The guard never raises while it steps: a bad input is a doubt it reports, and it
 
 from __future__ import annotations
 
+import math
+from collections.abc import Iterable
+
 
 class ControllerError(ValueError):
     """Base of the errors a caller of the controller can cause and fix."""
@@ -38,3 +41,12 @@ class TimeOrderError(ControllerError):
 
 class PlanError(ControllerError):
     """No reference profile meets the request (e.g. no cooling keeps sigma under its cap)."""
+
+
+def check_fields(owner: object, checks: Iterable[tuple[str, bool, str]]) -> None:
+    """Raise :class:`SettingsError` for the first field of ``owner`` whose check fails or whose
+    value is not finite; ``checks`` are ``(field, ok, problem)``."""
+    for name, ok, problem in checks:
+        value = getattr(owner, name)
+        if not (ok and math.isfinite(value)):
+            raise SettingsError(type(owner).__name__, name, f"{problem}; got {value}")

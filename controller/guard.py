@@ -29,7 +29,7 @@ import math
 from dataclasses import dataclass
 from enum import Enum
 
-from controller.errors import SettingsError
+from controller.errors import SettingsError, check_fields
 
 HEARTBEAT_MODULUS = 32768
 """The heartbeat counts 0, 1, ..., 32767, 0, ...: the range of a signed 16-bit register, which
@@ -53,11 +53,6 @@ class GuardMode(Enum):
     proposals, or no setpoint that meets every limit. The limited proposal is still shown."""
     FALLBACK = "fallback"
     """Something is in doubt: nothing is written and the declared fallback applies."""
-
-
-def _positive(owner: str, name: str, value: float) -> None:
-    if not (math.isfinite(value) and value > 0.0):
-        raise SettingsError(owner, name, f"must be a positive number; got {value}")
 
 
 @dataclass(frozen=True)
@@ -102,19 +97,23 @@ class GuardLimits:
             raise SettingsError(
                 owner, "final_temp_k", f"must lie in setpoint_range_k; got {self.final_temp_k}"
             )
-        for name in ("max_cooling_rate_k_per_s", "max_step_k", "interval_s", "heartbeat_period_s"):
-            _positive(owner, name, getattr(self, name))
-        heating = self.max_heating_rate_k_per_s
-        if not (math.isfinite(heating) and heating >= 0.0):
-            raise SettingsError(
-                owner, "max_heating_rate_k_per_s", f"must be 0 or more; got {heating}"
-            )
+        positive = "must be a positive number"
+        check_fields(
+            self,
+            (
+                ("max_cooling_rate_k_per_s", self.max_cooling_rate_k_per_s > 0.0, positive),
+                ("max_step_k", self.max_step_k > 0.0, positive),
+                ("interval_s", self.interval_s > 0.0, positive),
+                ("heartbeat_period_s", self.heartbeat_period_s > 0.0, positive),
+                ("max_heating_rate_k_per_s", self.max_heating_rate_k_per_s >= 0.0, "must be >= 0"),
+            ),
+        )
         if not self.heating_phases <= self.proposal_phases:
             extra = sorted(self.heating_phases - self.proposal_phases)
             raise SettingsError(
                 owner, "heating_phases", f"{extra} are not among the proposal phases"
             )
-        if self.heating_phases and heating == 0.0:
+        if self.heating_phases and self.max_heating_rate_k_per_s == 0.0:
             raise SettingsError(
                 owner, "max_heating_rate_k_per_s", "must be positive when heating phases are set"
             )

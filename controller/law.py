@@ -73,7 +73,7 @@ from enum import Enum
 
 import numpy as np
 
-from controller.errors import ControllerError, SettingsError
+from controller.errors import ControllerError, check_fields
 from controller.guard import GuardLimits
 from controller.protocols import (
     FloatArray,
@@ -111,7 +111,6 @@ class LawSettings:
     rate_candidates: int = 8
 
     def __post_init__(self) -> None:
-        owner = type(self).__name__
         checks = (
             ("target_fraction", 0.0 < self.target_fraction < 1.0, "must be in (0, 1)"),
             ("confidence_k", self.confidence_k >= 0.0, "must be 0 or more"),
@@ -122,10 +121,7 @@ class LawSettings:
             ("dissolution_sigma", -1.0 < self.dissolution_sigma < 0.0, "must be in (-1, 0)"),
             ("rate_candidates", self.rate_candidates >= 2, "must be at least 2"),
         )
-        for name, ok, problem in checks:
-            value = getattr(self, name)
-            if not (ok and math.isfinite(value)):
-                raise SettingsError(owner, name, f"{problem}; got {value}")
+        check_fields(self, checks)
 
 
 @dataclass(frozen=True)

@@ -36,7 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from controller.errors import PlanError, SettingsError
+from controller.errors import PlanError, SettingsError, check_fields
 from controller.profiles import CoolingProfile
 from controller.protocols import FloatArray, SigmaPredictor
 
@@ -69,7 +69,6 @@ class PlanSettings:
     hold_fraction: float = 0.1
 
     def __post_init__(self) -> None:
-        owner = type(self).__name__
         checks = (
             ("sigma_max", self.sigma_max > 0.0, "must be positive"),
             ("max_cooling_rate_k_per_s", self.max_cooling_rate_k_per_s > 0.0, "must be positive"),
@@ -79,10 +78,7 @@ class PlanSettings:
             ("points_per_segment", self.points_per_segment >= 2, "must be at least 2"),
             ("hold_fraction", self.hold_fraction >= 0.0, "must be 0 or more"),
         )
-        for name, ok, problem in checks:
-            value = getattr(self, name)
-            if not (ok and math.isfinite(value)):
-                raise SettingsError(owner, name, f"{problem}; got {value}")
+        check_fields(self, checks)
 
 
 @dataclass(frozen=True)

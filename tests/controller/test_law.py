@@ -18,7 +18,6 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from controller.errors import ControllerError, SettingsError
-from controller.guard import GuardLimits
 from controller.law import (
     LawInputs,
     LawMode,
@@ -31,6 +30,8 @@ from controller.law import (
 from tests.controller.toys import (
     BETA_PER_K,
     C_REF,
+    LIMITS,
+    PER_MIN,
     REF_TEMP_K,
     ConstantForecast,
     ToyCrystallizer,
@@ -39,18 +40,6 @@ from tests.controller.toys import (
     ToyZone,
 )
 
-PER_MIN = 1.0 / 60.0
-LIMITS = GuardLimits(
-    setpoint_range_k=(273.15, 353.15),
-    final_temp_k=283.15,
-    max_cooling_rate_k_per_s=1.0 * PER_MIN,
-    max_step_k=0.5,
-    interval_s=30.0,
-    proposal_phases=frozenset({"controlled-cooling", "dissolve-fines"}),
-    heartbeat_period_s=10.0,
-    max_heating_rate_k_per_s=2.0 * PER_MIN,
-    heating_phases=frozenset({"dissolve-fines"}),
-)
 SETTINGS = LawSettings(
     target_fraction=0.5,
     confidence_k=2.0,

@@ -1,4 +1,5 @@
-"""A toy seeded cooling crystallizer, written for the controller's tests.
+"""A toy seeded cooling crystallizer, written for the controller's tests, and the guard limits
+the tests share.
 
 It is a toy: invented numbers, first-order growth, no nucleation, one lump of crystals. It is
 not the soft sensor's model and not the plant simulator; it only gives the controller's
@@ -16,6 +17,24 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+
+from controller.guard import GuardLimits
+
+PER_MIN = 1.0 / 60.0
+
+LIMITS = GuardLimits(
+    setpoint_range_k=(273.15, 353.15),
+    final_temp_k=283.15,
+    max_cooling_rate_k_per_s=1.0 * PER_MIN,
+    max_step_k=0.5,
+    interval_s=30.0,
+    proposal_phases=frozenset({"controlled-cooling", "dissolve-fines"}),
+    heartbeat_period_s=10.0,
+    max_heating_rate_k_per_s=2.0 * PER_MIN,
+    heating_phases=frozenset({"dissolve-fines"}),
+)
+"""Guard limits shared by the guard's and the law's tests (a made-up heating phase,
+``dissolve-fines``, stands for a fines-dissolution step)."""
 
 REF_TEMP_K = 298.15
 C_REF = 0.08  # kg/kg at REF_TEMP_K
