@@ -3,15 +3,24 @@ controller gets from them (converted to SI once, here)."""
 
 from __future__ import annotations
 
+import dataclasses
+
 import pytest
 
 from controller.alarm_set import crystallizer_alarm_engine
 from controller.guard import Fallback, Guard
-from controller.law import SetpointLaw
+from controller.law import LawInputs, LawMode, SetpointLaw
 from sensor.errors import SiteConfigError
-from sensor.shell.config import load_site_file, parse_site
-from tests.conftest import DEMO_SITE
-from tests.controller.toys import ToySolubility, ToyZone
+from sensor.shell.config import (
+    AlarmsConfig,
+    ControllerConfig,
+    GuardConfig,
+    load_site_file,
+    parse_site,
+)
+from sensor.shell.sitemodels import fit_site_solubility, site_metastable_zone
+from tests.conftest import DEMO_SITE, REPO
+from tests.controller.toys import ConstantForecast, ToySolubility, ToyZone
 
 DEMO_TEXT = DEMO_SITE.read_text(encoding="utf-8")
 
@@ -104,3 +113,42 @@ def test_a_heating_phase_gives_heating_limits():
 def test_bad_controller_guard_and_alarm_keys_are_refused_by_name(old, new, message):
     with pytest.raises(SiteConfigError, match=message):
         parse_site(_edit(old, new), DEMO_SITE)
+
+
+@pytest.mark.parametrize(
+    ("section", "cls"),
+    [("controller", ControllerConfig), ("guard", GuardConfig), ("alarms", AlarmsConfig)],
+)
+def test_readme_explains_every_key_of_these_sections(section, cls):
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    for f in dataclasses.fields(cls):
+        assert f"`{section}.{f.name}`" in readme, f"README.md does not explain {section}.{f.name}"
+
+
+def test_readme_lists_every_alarm():
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    for definition in crystallizer_alarm_engine(AlarmsConfig().settings()).definitions:
+        assert f"| `{definition.name}` | {definition.priority.value} |" in readme
+
+
+def test_the_sites_fitted_curve_and_zone_serve_the_law_as_they_are():
+    # The protocols are structural: sensor's SolubilityCurve and MetastableZone satisfy them.
+    site = load_site_file(DEMO_SITE)
+    fit = fit_site_solubility(site)
+    zone = site_metastable_zone(site, fit)
+    law = SetpointLaw(
+        site.controller.law_settings(zone.rate_range_k_per_s[0]),
+        site.guard.limits(site.controller.update_interval_s),
+        fit.curve,
+        zone,
+    )
+    temp_k = 313.15
+    conc = float(fit.curve.c_sat(temp_k)) * 1.01
+    proposal = law.propose(
+        LawInputs(0.0, "controlled-cooling", temp_k, temp_k, conc, ConstantForecast(0.0))
+    )
+    assert proposal.mode is LawMode.AT_MAX_RATE
+    target = 0.5 * float(zone.sigma_limit(temp_k, 0.3 / 60.0))
+    assert proposal.sigma_target == pytest.approx(target, rel=1e-12)
+    expected = float(fit.curve.temp_sat(conc / (1.0 + target)))
+    assert proposal.direct_design_k == pytest.approx(expected, abs=1e-9)
