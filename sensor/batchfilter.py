@@ -53,6 +53,9 @@ from sensor.validation import N_STATE, R_STALE, check_reading
 FLAG_STARTED, FLAG_SEEDED, FLAG_WIDENED = 1, 2, 4
 FLAG_TEMP_STALE, FLAG_JACKET_STALE, FLAG_CONC_STALE = 8, 16, 32
 
+# Phase codes of BatchArrays.seeded_phase.
+PHASE_NOT_ESTIMATING, PHASE_UNSEEDED, PHASE_SEEDED = 0, 1, 2
+
 # Signals, in the order of the reading arrays.
 SIGNAL_TEMP, SIGNAL_JACKET, SIGNAL_CONC = 0, 1, 2
 
@@ -390,7 +393,8 @@ def filter_batch(
 ) -> tuple[int, int]:
     """Run one batch (``SoftSensor.step`` on every sample). Arrays are the batch's: ``time_s``
     (N,) [s]; ``values``, ``severities``, ``source_s``, ``present`` (3, N) for temperature,
-    jacket and analyzer; ``seeded_phase`` (N,) the phase is a seeded one. Returns (error code,
+    jacket and analyzer; ``seeded_phase`` (N,) the phase code (:class:`BatchArrays`). Returns
+    (error code,
     sample index); ``ERROR_NONE`` and -1 when all went well."""
     samples = time_s.shape[0]
     ev_t = np.empty(capacity)
@@ -427,13 +431,20 @@ def filter_batch(
                 if code == 0:
                     accepted[signal] = values[signal, k]
                     accepted_at[signal] = t
-        entering_seed = not seeded and seeded_phase[k] and s.seed_load > 0.0
+        if seeded_phase[k] == PHASE_NOT_ESTIMATING and count > 0:
+            count, base, seeded, gated_run = 0, 0, False, 0  # SoftSensor's reset
+        entering_seed = not seeded and seeded_phase[k] == PHASE_SEEDED and s.seed_load > 0.0
         nis = math.nan
         widened = False
         started = count > 0
         jacket = accepted[SIGNAL_JACKET]
         if not started:
-            if reasons[SIGNAL_TEMP] == 0 and reasons[SIGNAL_CONC] == 0 and not math.isnan(jacket):
+            if (
+                seeded_phase[k] != PHASE_NOT_ESTIMATING
+                and reasons[SIGNAL_TEMP] == 0
+                and reasons[SIGNAL_CONC] == 0
+                and not math.isnan(jacket)
+            ):
                 x0, p0 = initial_state(accepted[SIGNAL_TEMP], accepted[SIGNAL_CONC], s.init, n)
                 ev_t[0] = t
                 ev_u[0] = jacket
@@ -696,7 +707,9 @@ class BatchArrays(NamedTuple):
     severities : (3, N) int8 StatusCode severities (:class:`sensor.samples.Severity`)
     source_s : (3, N) source times [s], NaN when unknown
     present : (3, N) bool, a reading arrived
-    seeded_phase : (N,) bool, the batch is in a seeded phase
+    seeded_phase : (N,) int8 phase code: ``PHASE_NOT_ESTIMATING`` (the model does not hold, e.g.
+        undissolved charge while heating: the filter stops), ``PHASE_UNSEEDED`` (a clear
+        solution, or the phase is not known) or ``PHASE_SEEDED`` (the seed is in)
     """
 
     time_s: FloatArray
@@ -707,7 +720,7 @@ class BatchArrays(NamedTuple):
     seeded_phase: np.ndarray
 
     @classmethod
-    def from_samples(cls, samples: Sequence[Sample], seeded_phases: frozenset[str]) -> BatchArrays:
+    def from_samples(cls, samples: Sequence[Sample], setup: UnitSetup) -> BatchArrays:
         """Arrays of a list of samples (tests and small replays)."""
         count = len(samples)
         values = np.full((3, count), np.nan)
@@ -729,7 +742,7 @@ class BatchArrays(NamedTuple):
             severities=severities,
             source_s=source,
             present=present,
-            seeded_phase=np.array([sample.phase in seeded_phases for sample in samples]),
+            seeded_phase=np.array([phase_code(setup, s.phase) for s in samples], dtype=np.int8),
         )
 
 
@@ -803,9 +816,18 @@ def run_batches(
     return results
 
 
-def to_samples(batch: BatchArrays, seeded_phase_name: str = "seed") -> list[Sample]:
-    """The samples of a batch's arrays (the per-sample path's input; ``seeded_phase`` becomes the
-    phase ``seeded_phase_name``, or None)."""
+def phase_code(setup: UnitSetup, phase: str | None) -> int:
+    """The :class:`BatchArrays` phase code of a phase name (None: not known)."""
+    if phase is None or phase == "":
+        return PHASE_UNSEEDED
+    if setup.estimating_phases is not None and phase not in setup.estimating_phases:
+        return PHASE_NOT_ESTIMATING
+    return PHASE_SEEDED if phase in setup.seeded_phases else PHASE_UNSEEDED
+
+
+def to_samples(batch: BatchArrays, phase_names: tuple[str | None, str | None, str]) -> list[Sample]:
+    """The samples of a batch's arrays (the per-sample path's input); ``phase_names`` gives a
+    phase of each code."""
     samples = []
     for k, t in enumerate(batch.time_s):
         readings = []
@@ -821,7 +843,7 @@ def to_samples(batch: BatchArrays, seeded_phase_name: str = "seed") -> list[Samp
                     None if math.isnan(source) else float(source),
                 )
             )
-        phase = seeded_phase_name if batch.seeded_phase[k] else None
+        phase = phase_names[int(batch.seeded_phase[k])]
         samples.append(Sample(float(t), *readings, phase=phase))
     return samples
 
@@ -836,9 +858,10 @@ def run_per_sample(setup: UnitSetup, batch: BatchArrays) -> KernelOutput | Sigma
     sensor = SoftSensor(setup)
     n = setup.model.layout.size
     out = KernelOutput.empty(len(batch.time_s), n)
-    seeded_name = next(iter(setup.seeded_phases), "seed")
+    outside = sorted(setup.all_phases - (setup.estimating_phases or setup.all_phases))
+    names = (outside[0] if outside else None, None, min(setup.seeded_phases, default="seed"))
     try:
-        for k, sample in enumerate(to_samples(batch, seeded_name)):
+        for k, sample in enumerate(to_samples(batch, names)):
             result = sensor.step(sample)
             out.reasons[k] = [result.temp, result.jacket_temp, result.conc]
             out.conc_nis[k] = result.conc_nis

@@ -6,6 +6,10 @@ service, the simulator and the per-sample replay all drive this same object; the
 replay kernel (:mod:`sensor.batchfilter`) applies the same rules and equations to many batches at
 once and is tested to agree with it.
 
+The model assumes a clear solution until seeding: in a phase outside ``estimating_phases``
+(heating an undissolved charge, say) the filter stops and reports nothing, and it starts afresh
+in the next estimating phase.
+
 Order within a sample: readings are validated; the jacket temperature held as the model's input
 is the last accepted one; the filter starts at the first sample with accepted reactor temperature,
 jacket temperature and analyzer value; from then on each sample predicts to its time, adds the
@@ -49,6 +53,9 @@ class UnitSetup:
     seed_zeta : scaled moments of the seed charge [kg/kg solvent] (zeros: unseeded)
     solvent_mass_kg : solvent per batch [kg]
     seeded_phases : phases in which the seed is in the vessel; entering one adds the seed
+    estimating_phases : phases in which the model holds (a clear solution or a seeded one); in
+        any other the filter stops, and starts afresh in the next estimating phase; None: all
+    all_phases : every phase name the unit knows
     nis_window : analyzer updates in the NIS window
     nis_probability : two-sided band of the windowed NIS
     """
@@ -63,6 +70,8 @@ class UnitSetup:
     seed_zeta: FloatArray
     solvent_mass_kg: float
     seeded_phases: frozenset[str] = frozenset()
+    estimating_phases: frozenset[str] | None = None
+    all_phases: frozenset[str] = frozenset()
     nis_window: int = 30
     nis_probability: float = 0.95
 
@@ -185,6 +194,13 @@ class SoftSensor:
         temp = self._temp.check(t, sample.temp)
         jacket = self._jacket.check(t, sample.jacket_temp)
         conc = self._conc.check(t, sample.conc)
+        estimating = (
+            not sample.phase
+            or self.setup.estimating_phases is None
+            or sample.phase in self.setup.estimating_phases
+        )
+        if not estimating and self.filter.started:
+            self._reset()
         entering_seed = (
             not self._seeded
             and sample.phase is not None
@@ -194,7 +210,12 @@ class SoftSensor:
         nis = math.nan
         widened = False
         started = self.filter.started
-        if not started and temp == conc == Reason.ACCEPTED and not math.isnan(self._jacket.value):
+        if (
+            not started
+            and estimating
+            and temp == conc == Reason.ACCEPTED
+            and not math.isnan(self._jacket.value)
+        ):
             self.filter.start(t, self._temp.value, self._conc.value, self._jacket.value)
             started = True
             if entering_seed:
@@ -239,6 +260,15 @@ class SoftSensor:
             conc_stale=self._conc.stale(t),
             seeded=self._seeded,
         )
+
+    def _reset(self) -> None:
+        """Stop the filter (the phase left the model's validity); validation state stays."""
+        setup = self.setup
+        self.filter = CrystallizerFilter(
+            setup.model, setup.tuning, setup.measurements, setup.seed_zeta
+        )
+        self._nis = NisWindow(setup.nis_window, setup.nis_probability)
+        self._seeded = False
 
     def _analyzer(self, t: float) -> tuple[Reason, float, bool]:
         info: UpdateInfo | None = self.filter.analyzer(t, self._conc.value)

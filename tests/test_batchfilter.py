@@ -53,7 +53,7 @@ def test_kernel_agrees_with_filterpy_path(case, rng):
         samples = with_faults(batch.samples, rng)
         if irregular:
             samples = _irregular(samples, rng)
-        batches.append(BatchArrays.from_samples(samples, setup.seeded_phases))
+        batches.append(BatchArrays.from_samples(samples, setup))
     fused = run_batches(setup, batches)
     for arrays, kernel in zip(batches, fused, strict=True):
         reference = run_per_sample(setup, arrays)
@@ -94,7 +94,7 @@ def test_history_capacity_covers_the_delay_window():
 def test_kernel_reports_a_filter_that_fails(rng):
     setup = demo_setup()
     batch = cooling_batch(setup, rng, hours=0.1)
-    arrays = BatchArrays.from_samples(batch.samples, setup.seeded_phases)
+    arrays = BatchArrays.from_samples(batch.samples, setup)
     broken = replace(setup, measurements=replace(setup.measurements, temp_noise_std_k=1e-200))
     (result,) = run_batches(broken, [arrays])
     assert isinstance(result, KernelError)

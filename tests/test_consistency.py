@@ -45,7 +45,7 @@ def monte_carlo():
         )
         for _ in range(RUNS)
     ]
-    arrays = [BatchArrays.from_samples(b.samples, setup.seeded_phases) for b in batches]
+    arrays = [BatchArrays.from_samples(b.samples, setup) for b in batches]
     return batches, run_batches(setup, arrays)
 
 

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import csv
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -26,11 +27,12 @@ from pathlib import Path
 import numpy as np
 from asyncua.ua.status_codes import code_to_name_doc
 
-from sensor.batchfilter import BatchArrays
+from sensor.batchfilter import BatchArrays, phase_code
 from sensor.errors import DataFileError, UnitError
 from sensor.samples import severity
 from sensor.shell.config import SiteConfig, UnitConfig
-from sensor.shell.sitesensor import SEEDED_PHASES, analyzer_unit
+from sensor.shell.sitesensor import analyzer_unit
+from sensor.softsensor import UnitSetup
 from sensor.units import ZERO_CELSIUS_K
 
 STATUS_CODES = {name: code for code, (name, _doc) in code_to_name_doc.items()}
@@ -128,7 +130,10 @@ def _columns(unit: UnitConfig, header: list[str], file: Path, line: int) -> dict
 
 
 def read_historian_csv(
-    path: Path | str, site: SiteConfig, unit_id: str | None = None
+    path: Path | str,
+    site: SiteConfig,
+    setups: Callable[[int], UnitSetup],
+    unit_id: str | None = None,
 ) -> list[HistorianBatch]:
     """Read a historian CSV into its batches (one, unless the batch id changes inside).
 
@@ -136,6 +141,7 @@ def read_historian_csv(
     ----------
     path : the file
     site : the site file; its tag names name the columns
+    setups : the soft-sensor setup of a unit by index (it knows which phases are estimated)
     unit_id : the unit the file belongs to; by default the one whose temperature tag is a column
 
     Raises
@@ -162,6 +168,7 @@ def read_historian_csv(
     header = [name.strip() for name in next(rows)]
     unit_index = _unit_of(site, header, unit_id, file, header_line)
     unit = site.unit[unit_index]
+    setup = setups(unit_index)
     columns = _columns(unit, header, file, header_line)
     phase_of = {str(value): phase for phase, value in unit.phase_values.items()}
     count = len(numbered) - 1
@@ -233,8 +240,9 @@ def read_historian_csv(
     values = _to_si(raw, site, unit)
     severities = np.vectorize(lambda c: int(severity(c)), otypes=[np.int8])(codes)
     return _split(
-        file, unit_index, lines, stamps, times, values, severities, present, phases, batch_ids
-    )
+        setup, file, unit_index, lines, stamps, times, values, severities, present, phases,
+        batch_ids,
+    )  # fmt: skip
 
 
 def _to_si(raw: np.ndarray, site: SiteConfig, unit: UnitConfig) -> np.ndarray:
@@ -257,6 +265,7 @@ def _to_si(raw: np.ndarray, site: SiteConfig, unit: UnitConfig) -> np.ndarray:
 
 
 def _split(
+    setup: UnitSetup,
     file: Path,
     unit_index: int,
     lines: np.ndarray,
@@ -279,7 +288,7 @@ def _split(
             severities=severities[:, lo:hi].copy(),
             source_s=np.full((3, hi - lo), np.nan),
             present=present[:, lo:hi].copy(),
-            seeded_phase=np.array([p in SEEDED_PHASES for p in phases[lo:hi]], dtype=np.bool_),
+            seeded_phase=np.array([phase_code(setup, p) for p in phases[lo:hi]], dtype=np.int8),
         )
         batches.append(
             HistorianBatch(

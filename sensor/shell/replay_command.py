@@ -12,14 +12,17 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+from collections.abc import Callable
+from functools import cache, partial
 from pathlib import Path
 
 from sensor.errors import DataFileError
-from sensor.shell.config import load_site_file
+from sensor.shell.config import SiteConfig, load_site_file
 from sensor.shell.historian import HistorianBatch, read_historian_csv
 from sensor.shell.replay import BatchSummary, Progress, Replay, write_estimates
 from sensor.shell.sitesensor import site_zone, unit_setup
 from sensor.shell.tables import format_table
+from sensor.softsensor import UnitSetup
 
 EXIT_FAILED = 2
 """Exit status when a file or a batch failed (the others were still replayed)."""
@@ -62,12 +65,14 @@ def register(commands: argparse._SubParsersAction) -> None:
     parser.set_defaults(run=run_replay)
 
 
-def _read(files: list[str], site, unit_id: str | None) -> tuple[list[HistorianBatch], int]:
+def _read(
+    files: list[str], site: SiteConfig, setups: Callable[[int], UnitSetup], unit_id: str | None
+) -> tuple[list[HistorianBatch], int]:
     batches: list[HistorianBatch] = []
     failed = 0
     for name in files:
         try:
-            batches.extend(read_historian_csv(name, site, unit_id))
+            batches.extend(read_historian_csv(name, site, setups, unit_id))
         except DataFileError as error:
             print(f"sigmatrack: error: {error}", file=sys.stderr)
             failed += 1
@@ -96,10 +101,11 @@ def _print_table(summaries: list[BatchSummary]) -> None:
 def run_replay(args: argparse.Namespace) -> int:
     site = load_site_file(args.config)
     zone = site_zone(site)
-    batches, failed = _read(args.files, site, args.unit)
+    setups = cache(partial(unit_setup, site, zone=zone))  # one setup per unit, on demand
+    batches, failed = _read(args.files, site, setups, args.unit)
     units = sorted({b.unit for b in batches})
     replay = Replay(
-        setups={i: unit_setup(site, i, zone) for i in units},
+        setups={i: setups(i) for i in units},
         unit_ids={i: site.unit[i].id for i in units},
         threads=max(1, args.threads),
     )

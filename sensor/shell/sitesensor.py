@@ -24,6 +24,11 @@ from sensor.validation import SignalRules
 SEEDED_PHASES = frozenset(BATCH_PHASES[BATCH_PHASES.index("seed") :])
 """Phases in which the seed is in the vessel (``seed`` and every phase after it)."""
 
+ESTIMATING_PHASES = frozenset(BATCH_PHASES[BATCH_PHASES.index("cool-to-seed") :])
+"""Phases in which the estimation model holds: from cooling to the seed point (the charge has
+dissolved) on. While the charge is heated and dissolved, undissolved solid that the model does
+not know would be read as analyzer bias."""
+
 
 def site_zone(site: SiteConfig) -> MetastableZone:
     """The site's metastable zone, holding its fitted solubility curve (fit once per site)."""
@@ -152,6 +157,8 @@ def unit_setup(site: SiteConfig, index: int, zone: MetastableZone) -> UnitSetup:
         seed_zeta=seed,
         solvent_mass_kg=unit.solvent_mass_kg,
         seeded_phases=SEEDED_PHASES,
+        estimating_phases=ESTIMATING_PHASES,
+        all_phases=frozenset(BATCH_PHASES),
         nis_window=filter_config.nis_window,
         nis_probability=filter_config.nis_probability,
     )

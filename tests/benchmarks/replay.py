@@ -67,7 +67,7 @@ def make_batches(setup, count: int, hours: float, rng: np.random.Generator) -> l
             seed_at_s=600.0,
             bias=float(rng.normal(0.0, 0.002)),
         )
-        templates.append(BatchArrays.from_samples(batch.samples, setup.seeded_phases))
+        templates.append(BatchArrays.from_samples(batch.samples, setup))
     stds = np.array(
         [setup.measurements.temp_noise_std_k, JACKET_NOISE_STD_K, setup.measurements.conc_noise_std]
     )
