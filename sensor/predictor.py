@@ -67,28 +67,30 @@ class SigmaForecast:
 
 @numba.njit(cache=True)
 def _propagate(sigmas, times, temps, params, table, max_step, out_sigma, out_conc):
-    """Each sigma point along the path: ``out_sigma[i, j]``, ``out_conc[i, j]`` at ``times[j]``."""
+    """Each sigma point along each path: ``out_sigma[p, i, j]``, ``out_conc[p, i, j]`` for path
+    ``p`` (a row of ``temps``), sigma point ``i``, at ``times[j]``."""
     count, n = sigmas.shape
     slope = np.empty(n)
-    for i in range(count):
-        x = sigmas[i].copy()
-        x[TEMP] = temps[0]
-        for j in range(times.shape[0]):
-            if j > 0:
-                span = times[j] - times[j - 1]
-                steps = substeps(span, max_step)
-                h = span / steps
-                for k in range(steps):
-                    # the path is linear between its points; the temperature is prescribed
-                    x[TEMP] = temps[j - 1] + (temps[j] - temps[j - 1]) * (k / steps)
-                    rates(x, x[TEMP], params, table, slope)
-                    for m in range(n):
-                        if m != TEMP:
-                            x[m] += h * slope[m]
-                x[TEMP] = temps[j]
-            c_sat, _ = c_sat_from_table(x[TEMP], params, table)
-            out_sigma[i, j] = x[CONC] / c_sat - 1.0
-            out_conc[i, j] = x[CONC]
+    for p in range(temps.shape[0]):
+        for i in range(count):
+            x = sigmas[i].copy()
+            x[TEMP] = temps[p, 0]
+            for j in range(times.shape[0]):
+                if j > 0:
+                    span = times[j] - times[j - 1]
+                    steps = substeps(span, max_step)
+                    h = span / steps
+                    for k in range(steps):
+                        # the path is linear between its points; the temperature is prescribed
+                        x[TEMP] = temps[p, j - 1] + (temps[p, j] - temps[p, j - 1]) * (k / steps)
+                        rates(x, x[TEMP], params, table, slope)
+                        for m in range(n):
+                            if m != TEMP:
+                                x[m] += h * slope[m]
+                    x[TEMP] = temps[p, j]
+                c_sat, _ = c_sat_from_table(x[TEMP], params, table)
+                out_sigma[p, i, j] = x[CONC] / c_sat - 1.0
+                out_conc[p, i, j] = x[CONC]
 
 
 class SigmaPredictor:
@@ -136,19 +138,28 @@ class SigmaPredictor:
         """
         times = np.asarray(time_s, dtype=float)
         temps = np.asarray(temp_k, dtype=float)
-        if times.ndim != 1 or times.shape != temps.shape or times.size == 0:
+        if temps.shape != times.shape:
             raise ForecastError("the path needs 1-D times and temperatures of one length")
-        if not (np.all(np.isfinite(times)) and np.all(np.isfinite(temps))):
-            raise ForecastError("the path holds a value that is not finite")
-        if times[0] < 0.0 or np.any(np.diff(times) <= 0.0):
-            raise ForecastError("the path's times must start at 0 or later and increase")
-        mean = np.asarray(x, dtype=float)
-        sigmas = self._points.sigma_points(mean, np.asarray(P, dtype=float))
-        points = sigmas.shape[0]
-        start = np.concatenate([[0.0], times]) if times[0] > 0.0 else times
-        path_temps = np.concatenate([[mean[TEMP]], temps]) if times[0] > 0.0 else temps
-        full_sigma = np.empty((points, start.size))
-        full_conc = np.empty((points, start.size))
+        _check_path(times, temps)
+        sigma, std, conc = self._forecast(
+            np.asarray(x, dtype=float), np.asarray(P, dtype=float), times, temps[None, :]
+        )
+        return SigmaForecast(times, temps, sigma[0], std[0], conc[0])
+
+    def _forecast(
+        self, mean: FloatArray, cov: FloatArray, times: FloatArray, temps: FloatArray
+    ) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """Mean and std of sigma and mean concentration, (paths, times), for paths ``temps``
+        (paths, times) from the estimate (mean, cov)."""
+        sigmas = self._points.sigma_points(mean, cov)
+        paths, points = temps.shape[0], sigmas.shape[0]
+        if times[0] > 0.0:  # from now, at the current temperature, to the first point
+            start = np.concatenate([[0.0], times])
+            path_temps = np.hstack([np.full((paths, 1), mean[TEMP]), temps])
+        else:
+            start, path_temps = times, temps
+        full_sigma = np.empty((paths, points, start.size))
+        full_conc = np.empty((paths, points, start.size))
         _propagate(
             sigmas,
             start,
@@ -160,14 +171,48 @@ class SigmaPredictor:
             full_conc,
         )
         offset = start.size - times.size
-        sigma = full_sigma[:, offset:]
-        conc = full_conc[:, offset:]
+        sigma = full_sigma[:, :, offset:]
+        conc = full_conc[:, :, offset:]
         wm, wc = self._points.Wm, self._points.Wc
-        sigma_mean = wm @ sigma
-        conc_mean = wm @ conc
-        spread = wc @ (sigma - sigma_mean) ** 2
+        sigma_mean = np.einsum("i,pij->pj", wm, sigma)
+        conc_mean = np.einsum("i,pij->pj", wm, conc)
+        spread = np.einsum("i,pij->pj", wc, (sigma - sigma_mean[:, None, :]) ** 2)
         c_sat = self.curve.c_sat(temps)
         curve_var = (conc_mean / c_sat**2 * self.curve.c_sat_std(temps)) ** 2
         noise_var = self._conc_noise_var * times / c_sat**2
         std = np.sqrt(np.maximum(spread, 0.0) + curve_var + noise_var)
-        return SigmaForecast(times, temps, sigma_mean, std, conc_mean)
+        return sigma_mean, std, conc_mean
+
+    def bind(self, x: ArrayLike, P: ArrayLike) -> BoundPredictor:
+        """The forecaster of one estimate, as the controller's ``SigmaPredictor`` protocol asks:
+        ``predict_sigma(times_s (n,), temp_path_k (m, n)) -> (mean, std)``, each (m, n)."""
+        return BoundPredictor(self, np.array(x, dtype=float), np.array(P, dtype=float))
+
+
+@dataclass(frozen=True)
+class BoundPredictor:
+    """:class:`SigmaPredictor` bound to one estimate (``controller.protocols.SigmaPredictor``)."""
+
+    predictor: SigmaPredictor
+    x: FloatArray
+    P: FloatArray
+
+    def predict_sigma(
+        self, times_s: ArrayLike, temp_path_k: ArrayLike
+    ) -> tuple[FloatArray, FloatArray]:
+        """Mean and std of sigma [-], (m, n), along the m paths ``temp_path_k`` (m, n) [K] at
+        ``times_s`` (n,) [s after the estimate]."""
+        times = np.asarray(times_s, dtype=float)
+        temps = np.atleast_2d(np.asarray(temp_path_k, dtype=float))
+        _check_path(times, temps)
+        mean, std, _ = self.predictor._forecast(self.x, self.P, times, temps)
+        return mean, std
+
+
+def _check_path(times: FloatArray, temps: FloatArray) -> None:
+    if times.ndim != 1 or times.size == 0 or temps.shape[-1] != times.size:
+        raise ForecastError("the path needs 1-D times and temperatures of one length")
+    if not (np.all(np.isfinite(times)) and np.all(np.isfinite(temps))):
+        raise ForecastError("the path holds a value that is not finite")
+    if times[0] < 0.0 or np.any(np.diff(times) <= 0.0):
+        raise ForecastError("the path's times must start at 0 or later and increase")

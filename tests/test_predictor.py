@@ -68,3 +68,21 @@ def test_bad_paths_are_refused(setup, times, temps, message):
     x = _state(setup)
     with pytest.raises(ForecastError, match=message):
         predictor(x, np.eye(x.size) * 1e-12, times, temps)
+
+
+def test_bound_predictor_answers_the_controllers_protocol(setup):
+    # controller.protocols.SigmaPredictor: predict_sigma(times (n,), paths (m, n)) -> (m, n) x 2,
+    # each row what the one-path forecast gives.
+    x = _state(setup)
+    P = np.diag(np.full(x.size, 1e-8))
+    P[6, 6] = 0.01
+    predictor = SigmaPredictor(setup.model, setup.tuning, setup.zone.solubility, step_s=30.0)
+    times = np.arange(30.0, 1201.0, 30.0)
+    paths = 320.0 - np.array([0.2, 0.5, 1.0])[:, None] / 60.0 * times
+    mean, std = predictor.bind(x, P).predict_sigma(times, paths)
+    assert mean.shape == std.shape == (3, times.size)
+    for row, path in enumerate(paths):
+        one = predictor(x, P, times, path)
+        np.testing.assert_allclose(mean[row], one.sigma, rtol=1e-12)
+        np.testing.assert_allclose(std[row], one.sigma_std, rtol=1e-12)
+    assert np.all(mean[2, -5:] > mean[0, -5:])  # faster cooling, more supersaturation
