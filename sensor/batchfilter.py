@@ -165,6 +165,44 @@ class Workspace(NamedTuple):
     mean_slope: FloatArray
 
 
+class History(NamedTuple):
+    """The filter's recent events (``CrystallizerFilter._events``) as arrays: time [s], jacket
+    input from then on [K], temperature and analyzer values applied (NaN: none), seeding, and the
+    posterior after each."""
+
+    t: FloatArray
+    u: FloatArray
+    temp: FloatArray
+    conc: FloatArray
+    seed: np.ndarray
+    x: FloatArray
+    P: FloatArray
+
+
+@numba.njit(cache=True)
+def _history(capacity: int, n: int) -> History:
+    return History(
+        np.empty(capacity),
+        np.empty(capacity),
+        np.empty(capacity),
+        np.empty(capacity),
+        np.zeros(capacity, dtype=np.bool_),
+        np.empty((capacity, n)),
+        np.empty((capacity, n, n)),
+    )
+
+
+@numba.njit(cache=True)
+def _set_event(
+    h: History, e: int, t: float, u: float, temp: float, conc: float, seed: bool
+) -> None:
+    h.t[e] = t
+    h.u[e] = u
+    h.temp[e] = temp
+    h.conc[e] = conc
+    h.seed[e] = seed
+
+
 @numba.njit(cache=True)
 def _workspace(n: int) -> Workspace:
     points = 2 * n + 1
@@ -316,59 +354,67 @@ def _seed(s: KernelSetup, w: Workspace) -> bool:
 
 
 @numba.njit(cache=True)
-def _run_event(e, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P, s, w) -> tuple[int, bool]:
+def _run_event(e: int, h: History, s: KernelSetup, w: Workspace) -> tuple[int, bool]:
     """Process event ``e`` from event ``e - 1``'s posterior (``CrystallizerFilter._run``).
     Returns (error code, temperature gated)."""
     x, P = w.x, w.P
-    x[:] = ev_x[e - 1]
-    P[:, :] = ev_P[e - 1]
-    if not _predict(ev_t[e] - ev_t[e - 1], ev_u[e - 1], s, w):
+    x[:] = h.x[e - 1]
+    P[:, :] = h.P[e - 1]
+    if not _predict(h.t[e] - h.t[e - 1], h.u[e - 1], s, w):
         return ERROR_NOT_PD, False
-    if ev_seed[e] and not _seed(s, w):
+    if h.seed[e] and not _seed(s, w):
         return ERROR_NOT_PD, False
     gated = False
-    if not math.isnan(ev_temp[e]):
-        y, var = _innovation(x, P, ev_temp[e], SIGNAL_TEMP, s.r_temp)
+    if not math.isnan(h.temp[e]):
+        y, var = _innovation(x, P, h.temp[e], SIGNAL_TEMP, s.r_temp)
         if y * y / var > s.gate_nis:
             gated = True
         else:
-            _update(ev_temp[e], SIGNAL_TEMP, s.r_temp, s, w)
-    if not math.isnan(ev_conc[e]):
-        _update(ev_conc[e], SIGNAL_CONC, s.r_conc, s, w)
+            _update(h.temp[e], SIGNAL_TEMP, s.r_temp, s, w)
+    if not math.isnan(h.conc[e]):
+        _update(h.conc[e], SIGNAL_CONC, s.r_conc, s, w)
     for j in range(x.shape[0]):
         if not math.isfinite(x[j]):
             return ERROR_NOT_FINITE, gated
-    ev_x[e] = x
-    ev_P[e] = P
+    h.x[e] = x
+    h.P[e] = P
     return ERROR_NONE, gated
 
 
 @numba.njit(cache=True)
-def _shift(first, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P):
-    """Drop the ``first`` oldest events."""
-    keep = count - first
-    for e in range(keep):
-        ev_t[e] = ev_t[e + first]
-        ev_u[e] = ev_u[e + first]
-        ev_temp[e] = ev_temp[e + first]
-        ev_conc[e] = ev_conc[e + first]
-        ev_seed[e] = ev_seed[e + first]
-        ev_x[e] = ev_x[e + first]
-        ev_P[e] = ev_P[e + first]
-    return keep
+def _rerun(first: int, count: int, h: History, s: KernelSetup, w: Workspace) -> int:
+    """Re-run events ``first`` to ``count - 1``; the first error code (or ``ERROR_NONE``)."""
+    for e in range(first, count):
+        error, _ = _run_event(e, h, s, w)
+        if error != ERROR_NONE:
+            return error
+    return ERROR_NONE
 
 
 @numba.njit(cache=True)
-def _insert(at, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P):
-    """Open a slot at index ``at``, moving the later events up by one."""
+def _move(h: History, to: int, source: int) -> None:
+    h.t[to] = h.t[source]
+    h.u[to] = h.u[source]
+    h.temp[to] = h.temp[source]
+    h.conc[to] = h.conc[source]
+    h.seed[to] = h.seed[source]
+    h.x[to] = h.x[source]
+    h.P[to] = h.P[source]
+
+
+@numba.njit(cache=True)
+def _shift(first: int, count: int, h: History) -> int:
+    """Drop the ``first`` oldest events; the new count."""
+    for e in range(count - first):
+        _move(h, e, e + first)
+    return count - first
+
+
+@numba.njit(cache=True)
+def _insert(at: int, count: int, h: History) -> int:
+    """Open a slot at index ``at``, moving the later events up by one; the new count."""
     for e in range(count, at, -1):
-        ev_t[e] = ev_t[e - 1]
-        ev_u[e] = ev_u[e - 1]
-        ev_temp[e] = ev_temp[e - 1]
-        ev_conc[e] = ev_conc[e - 1]
-        ev_seed[e] = ev_seed[e - 1]
-        ev_x[e] = ev_x[e - 1]
-        ev_P[e] = ev_P[e - 1]
+        _move(h, e, e - 1)
     return count + 1
 
 
@@ -397,13 +443,7 @@ def filter_batch(
     (error code,
     sample index); ``ERROR_NONE`` and -1 when all went well."""
     samples = time_s.shape[0]
-    ev_t = np.empty(capacity)
-    ev_u = np.empty(capacity)
-    ev_temp = np.empty(capacity)
-    ev_conc = np.empty(capacity)
-    ev_seed = np.zeros(capacity, dtype=np.bool_)
-    ev_x = np.empty((capacity, n))
-    ev_P = np.empty((capacity, n, n))
+    h = _history(capacity, n)
     count = 0
     base = 0
     w = _workspace(n)
@@ -446,61 +486,28 @@ def filter_batch(
                 and not math.isnan(jacket)
             ):
                 x0, p0 = initial_state(accepted[SIGNAL_TEMP], accepted[SIGNAL_CONC], s.init, n)
-                ev_t[0] = t
-                ev_u[0] = jacket
-                ev_temp[0] = math.nan
-                ev_conc[0] = math.nan
-                ev_seed[0] = False
-                ev_x[0] = x0
-                ev_P[0] = p0
+                _set_event(h, 0, t, jacket, math.nan, math.nan, False)
+                h.x[0] = x0
+                h.P[0] = p0
                 count = 1
                 started = True
                 if entering_seed:
-                    ev_t[1] = t
-                    ev_u[1] = jacket
-                    ev_temp[1] = math.nan
-                    ev_conc[1] = math.nan
-                    ev_seed[1] = True
+                    _set_event(h, 1, t, jacket, math.nan, math.nan, True)
                     count = 2
-                    error, _ = _run_event(
-                        1,
-                        ev_t,
-                        ev_u,
-                        ev_temp,
-                        ev_conc,
-                        ev_seed,
-                        ev_x,
-                        ev_P,
-                        s,
-                        w,
-                    )
+                    error, _ = _run_event(1, h, s, w)
                     if error != ERROR_NONE:
                         return error, k
                     seeded = True
         else:
             if count >= capacity:
-                count = _shift(base, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P)
+                count = _shift(base, count, h)
                 base = 0
                 if count >= capacity:
                     return ERROR_HISTORY_FULL, k
-            ev_t[count] = t
-            ev_u[count] = jacket
-            ev_temp[count] = accepted[SIGNAL_TEMP] if reasons[SIGNAL_TEMP] == 0 else math.nan
-            ev_conc[count] = math.nan
-            ev_seed[count] = entering_seed
+            temp_z = accepted[SIGNAL_TEMP] if reasons[SIGNAL_TEMP] == 0 else math.nan
+            _set_event(h, count, t, jacket, temp_z, math.nan, entering_seed)
             count += 1
-            error, gated = _run_event(
-                count - 1,
-                ev_t,
-                ev_u,
-                ev_temp,
-                ev_conc,
-                ev_seed,
-                ev_x,
-                ev_P,
-                s,
-                w,
-            )
+            error, gated = _run_event(count - 1, h, s, w)
             if error != ERROR_NONE:
                 return error, k
             seeded = seeded or entering_seed
@@ -510,21 +517,21 @@ def filter_batch(
             keep_from = t - s.delay_s - s.history_margin_s
             # (the dropped events stay in the arrays until they are needed: ``base`` is the first
             # kept one, and the arrays are compacted only when full)
-            while base + 1 < count and ev_t[base + 1] <= keep_from:
+            while base + 1 < count and h.t[base + 1] <= keep_from:
                 base += 1
             if reasons[SIGNAL_CONC] == 0:
                 drawn = t - s.delay_s
                 anchor = -1
                 for e in range(count - 1, base - 1, -1):
-                    if ev_t[e] <= drawn:
+                    if h.t[e] <= drawn:
                         anchor = e
                         break
                 if anchor < 0:
                     reasons[SIGNAL_CONC] = _BEFORE_HISTORY
                 else:
-                    x[:] = ev_x[anchor]
-                    P[:, :] = ev_P[anchor]
-                    if not _predict(drawn - ev_t[anchor], ev_u[anchor], s, w):
+                    x[:] = h.x[anchor]
+                    P[:, :] = h.P[anchor]
+                    if not _predict(drawn - h.t[anchor], h.u[anchor], s, w):
                         return ERROR_NOT_PD, k
                     force = gated_run >= s.max_consecutive_gated
                     if force:
@@ -540,49 +547,29 @@ def filter_batch(
                         gated_run = 0
                         _update(z, SIGNAL_CONC, s.r_conc, s, w)
                         if count >= capacity:
-                            kept = _shift(
-                                base, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P
-                            )
+                            kept = _shift(base, count, h)
                             anchor -= count - kept
                             count, base = kept, 0
                             if count >= capacity:
                                 return ERROR_HISTORY_FULL, k
-                        count = _insert(
-                            anchor + 1, count, ev_t, ev_u, ev_temp, ev_conc, ev_seed, ev_x, ev_P
-                        )
+                        count = _insert(anchor + 1, count, h)
                         slot = anchor + 1
-                        ev_t[slot] = drawn
-                        ev_u[slot] = ev_u[anchor]
-                        ev_temp[slot] = math.nan
-                        ev_conc[slot] = z
-                        ev_seed[slot] = False
-                        ev_x[slot] = x
-                        ev_P[slot] = P
-                        for e in range(slot + 1, count):
-                            error, _ = _run_event(
-                                e,
-                                ev_t,
-                                ev_u,
-                                ev_temp,
-                                ev_conc,
-                                ev_seed,
-                                ev_x,
-                                ev_P,
-                                s,
-                                w,
-                            )
-                            if error != ERROR_NONE:
-                                return error, k
+                        _set_event(h, slot, drawn, h.u[anchor], math.nan, z, False)
+                        h.x[slot] = x
+                        h.P[slot] = P
+                        error = _rerun(slot + 1, count, h, s, w)
+                        if error != ERROR_NONE:
+                            return error, k
         for signal in range(3):
             out_reasons[k, signal] = reasons[signal]
         out_nis[k] = nis
         flags = 0
         if started:
             last = count - 1
-            out_x[k] = ev_x[last]
+            out_x[k] = h.x[last]
             for j in range(n):
-                out_var[k, j] = ev_P[last, j, j]
-            out_ctc[k] = ev_P[last, TEMP, CONC]
+                out_var[k, j] = h.P[last, j, j]
+            out_ctc[k] = h.P[last, TEMP, CONC]
             out_jacket[k] = jacket
             flags |= FLAG_STARTED
         if seeded:
@@ -599,26 +586,25 @@ def filter_batch(
     return ERROR_NONE, -1
 
 
+class FlatBatches(NamedTuple):
+    """Many batches' :class:`BatchArrays` end to end; batch ``b`` is samples
+    ``offsets[b]:offsets[b + 1]``."""
+
+    offsets: np.ndarray
+    time_s: FloatArray
+    values: FloatArray
+    severities: np.ndarray
+    source_s: FloatArray
+    present: np.ndarray
+    seeded_phase: np.ndarray
+
+
 @numba.njit(cache=True)
-def _filter_one(
-    b,
-    offsets,
-    time_s,
-    values,
-    severities,
-    source_s,
-    present,
-    seeded_phase,
-    n,
-    s,
-    capacity,
-    out,
-    errors,
-):
-    lo, hi = offsets[b], offsets[b + 1]
+def _filter_one(b, d: FlatBatches, n, s, capacity, out: KernelOutput, errors) -> None:
+    lo, hi = d.offsets[b], d.offsets[b + 1]
     code, at = filter_batch(
-        time_s[lo:hi], values[:, lo:hi], severities[:, lo:hi], source_s[:, lo:hi],
-        present[:, lo:hi], seeded_phase[lo:hi], n, s, capacity[b], out.x[lo:hi],
+        d.time_s[lo:hi], d.values[:, lo:hi], d.severities[:, lo:hi], d.source_s[:, lo:hi],
+        d.present[:, lo:hi], d.seeded_phase[lo:hi], n, s, capacity[b], out.x[lo:hi],
         out.var[lo:hi], out.cov_temp_conc[lo:hi], out.reasons[lo:hi], out.conc_nis[lo:hi],
         out.flags[lo:hi], out.jacket_temp_k[lo:hi],
     )  # fmt: skip
@@ -627,74 +613,19 @@ def _filter_one(
 
 
 @numba.njit(cache=True)
-def filter_batches(
-    offsets,
-    time_s,
-    values,
-    severities,
-    source_s,
-    present,
-    seeded_phase,
-    n,
-    s,
-    capacity,
-    out,
-    errors,
-):
-    """:func:`filter_batch` on every batch, one after the other; batch ``b`` is samples
-    ``offsets[b]:offsets[b+1]`` of the flat arrays; ``errors`` (batches, 2) receives each batch's
-    error code and sample index."""
-    for b in range(offsets.shape[0] - 1):
-        _filter_one(
-            b,
-            offsets,
-            time_s,
-            values,
-            severities,
-            source_s,
-            present,
-            seeded_phase,
-            n,
-            s,
-            capacity,
-            out,
-            errors,
-        )
+def filter_batches(d: FlatBatches, n, s, capacity, out: KernelOutput, errors) -> None:
+    """:func:`filter_batch` on every batch, one after the other; ``errors`` (batches, 2)
+    receives each batch's error code and sample index."""
+    for b in range(d.offsets.shape[0] - 1):
+        _filter_one(b, d, n, s, capacity, out, errors)
 
 
 @numba.njit(cache=True, parallel=True)
-def filter_batches_threaded(
-    offsets,
-    time_s,
-    values,
-    severities,
-    source_s,
-    present,
-    seeded_phase,
-    n,
-    s,
-    capacity,
-    out,
-    errors,
-):
+def filter_batches_threaded(d: FlatBatches, n, s, capacity, out: KernelOutput, errors) -> None:
     """:func:`filter_batches` with the batches spread over numba's threads (compiled on first
     use, which takes a while)."""
-    for b in numba.prange(offsets.shape[0] - 1):
-        _filter_one(
-            b,
-            offsets,
-            time_s,
-            values,
-            severities,
-            source_s,
-            present,
-            seeded_phase,
-            n,
-            s,
-            capacity,
-            out,
-            errors,
-        )
+    for b in numba.prange(d.offsets.shape[0] - 1):
+        _filter_one(b, d, n, s, capacity, out, errors)
 
 
 class BatchArrays(NamedTuple):
@@ -787,16 +718,16 @@ def run_batches(
     )
     errors = np.zeros((len(batches), 2), dtype=np.int64)
     if batches:
-        time_s = np.concatenate([b.time_s for b in batches])
-        values = np.concatenate([b.values for b in batches], axis=1)
-        severities = np.concatenate([b.severities for b in batches], axis=1)
-        source = np.concatenate([b.source_s for b in batches], axis=1)
-        present = np.concatenate([b.present for b in batches], axis=1)
-        seeded = np.concatenate([b.seeded_phase for b in batches])
-        arguments = (
-            offsets, time_s, values, severities, source, present, seeded, n, s, capacity, out,
-            errors,
-        )  # fmt: skip
+        flat = FlatBatches(
+            offsets,
+            np.concatenate([b.time_s for b in batches]),
+            np.concatenate([b.values for b in batches], axis=1),
+            np.concatenate([b.severities for b in batches], axis=1),
+            np.concatenate([b.source_s for b in batches], axis=1),
+            np.concatenate([b.present for b in batches], axis=1),
+            np.concatenate([b.seeded_phase for b in batches]),
+        )
+        arguments = (flat, n, s, capacity, out, errors)
         if threads > 1:
             previous = numba.get_num_threads()
             numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))

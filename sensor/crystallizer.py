@@ -452,15 +452,18 @@ def step_into(
     slope: FloatArray,
 ) -> None:
     """:func:`step` without allocating: the new state into ``out``, ``slope`` is scratch."""
-    out[:] = x
-    if dt <= 0.0:
-        return
-    count = substeps(dt, params[P_MAX_STEP])
-    h = dt / count
-    for _ in range(count):
-        rates(out, jacket_temp_k, params, table, slope)
-        for i in range(x.shape[0]):
-            out[i] += h * slope[i]
+    n = x.shape[0]
+    step_points(
+        x.reshape((1, n)),
+        np.zeros(1, dtype=np.bool_),
+        dt,
+        jacket_temp_k,
+        params,
+        table,
+        out.reshape((1, n)),
+        slope,
+        slope,
+    )
 
 
 @numba.njit(cache=True)

@@ -79,6 +79,27 @@ Q_NUCLEATION_REL, Q_GROWTH_REL, Q_ERROR_TIME = 5, 6, 7
 N_NOISE = 8
 
 
+_POSITIVE_TUNING = (
+    "temp_process_std",
+    "conc_process_std",
+    "moment_process_std",
+    "kinetics_error_time_s",
+    "initial_temp_std",
+    "initial_conc_rel_std",
+    "initial_bias_std",
+    "initial_moment_std",
+    "sigma_alpha",
+)
+_NON_NEGATIVE_TUNING = (
+    "growth_scale_random_walk_std",
+    "bias_random_walk_std",
+    "growth_rel_std",
+    "nucleation_rel_std",
+    "seed_rel_std",
+    "history_margin_s",
+)
+
+
 @dataclass(frozen=True)
 class FilterTuning:
     """Tuning of the filter (site file ``[filter]`` and ``[model]`` uncertainty keys), in SI.
@@ -128,32 +149,15 @@ class FilterTuning:
     history_margin_s: float = 60.0
 
     def __post_init__(self) -> None:
-        positive = (
-            "temp_process_std",
-            "conc_process_std",
-            "moment_process_std",
-            "kinetics_error_time_s",
-            "initial_temp_std",
-            "initial_conc_rel_std",
-            "initial_bias_std",
-            "initial_moment_std",
-            "sigma_alpha",
+        rules = (
+            (_POSITIVE_TUNING, lambda v: v > 0.0, "must be positive"),
+            (_NON_NEGATIVE_TUNING, lambda v: v >= 0.0, "cannot be negative"),
         )
-        for name in positive:
-            value = getattr(self, name)
-            if not (math.isfinite(value) and value > 0.0):
-                raise ValueError(f"filter tuning: {name} must be positive; got {value}")
-        for name in (
-            "growth_scale_random_walk_std",
-            "bias_random_walk_std",
-            "growth_rel_std",
-            "nucleation_rel_std",
-            "seed_rel_std",
-            "history_margin_s",
-        ):
-            value = getattr(self, name)
-            if not (math.isfinite(value) and value >= 0.0):
-                raise ValueError(f"filter tuning: {name} cannot be negative; got {value}")
+        for names, fine, problem in rules:
+            for name in names:
+                value = getattr(self, name)
+                if not (math.isfinite(value) and fine(value)):
+                    raise ValueError(f"filter tuning: {name} {problem}; got {value}")
         if not 0.0 < self.gate_probability < 1.0:
             raise ValueError(f"gate_probability must be in (0, 1); got {self.gate_probability}")
         if self.max_consecutive_gated < 1:

@@ -76,7 +76,7 @@ def test_kernel_threads_give_the_same_answer(rng):
     setup = demo_setup()
     batches = [
         BatchArrays.from_samples(
-            cooling_batch(setup, rng, hours=0.25, seed_at_s=300.0).samples, setup.seeded_phases
+            cooling_batch(setup, rng, hours=0.25, seed_at_s=300.0).samples, setup
         )
         for _ in range(3)
     ]

@@ -17,7 +17,6 @@ it and says why.
 
 from __future__ import annotations
 
-import csv
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -31,6 +30,7 @@ from sensor.batchfilter import BatchArrays, phase_code
 from sensor.errors import DataFileError, UnitError
 from sensor.samples import severity
 from sensor.shell.config import SiteConfig, UnitConfig
+from sensor.shell.labdata import read_csv_text
 from sensor.shell.sitesensor import analyzer_unit
 from sensor.softsensor import UnitSetup
 from sensor.units import ZERO_CELSIUS_K
@@ -149,29 +149,14 @@ def read_historian_csv(
     DataFileError
         As the module docstring says, naming the file and the line.
     """
-    file = Path(path)
-    try:
-        text = file.read_text(encoding="utf-8-sig")
-    except OSError as error:
-        raise DataFileError(file, None, f"cannot be read ({error.strerror})") from None
-    except UnicodeDecodeError:
-        raise DataFileError(file, None, "is not UTF-8 text") from None
-    numbered = [
-        (number, line)
-        for number, line in enumerate(text.splitlines(), start=1)
-        if line.strip() and not line.lstrip().startswith("#")
-    ]
-    if not numbered:
-        raise DataFileError(file, None, "holds no header and no data")
-    rows = csv.reader([line for _, line in numbered])
-    header_line = numbered[0][0]
-    header = [name.strip() for name in next(rows)]
+    table = read_csv_text(path)
+    file, header, header_line = table.file, table.header, table.header_line
     unit_index = _unit_of(site, header, unit_id, file, header_line)
     unit = site.unit[unit_index]
     setup = setups(unit_index)
     columns = _columns(unit, header, file, header_line)
     phase_of = {str(value): phase for phase, value in unit.phase_values.items()}
-    count = len(numbered) - 1
+    count = len(table.rows)
     if count == 0:
         raise DataFileError(file, None, "holds a header but no data rows")
     times = np.empty(count)
@@ -183,7 +168,7 @@ def read_historian_csv(
     batch_ids: list[str] = []
     lines = np.empty(count, dtype=np.int64)
     phase, batch_id = "", ""
-    for k, ((number, _), row) in enumerate(zip(numbered[1:], rows, strict=True)):
+    for k, (number, row) in enumerate(table.rows):
         lines[k] = number
 
         def cell(key: str, row: list[str] = row) -> str:

@@ -45,14 +45,23 @@ class Columns:
         return self.lines[row]
 
 
-def read_numeric_columns(path: Path | str, names: Sequence[str]) -> Columns:
-    """Read the named columns of a CSV file as floats.
+@dataclass(frozen=True)
+class CsvText:
+    """A CSV file's header and rows, comment and blank lines dropped, with line numbers."""
+
+    file: Path
+    header: list[str]
+    header_line: int
+    rows: list[tuple[int, list[str]]]
+
+
+def read_csv_text(path: Path | str) -> CsvText:
+    """Read a CSV file with a header; lines starting with ``#`` and blank lines are skipped.
 
     Raises
     ------
     DataFileError
-        If the file cannot be read, has no header or lacks a column, or a cell is empty, not a
-        number, NaN or infinite; the message names the file, the line and the column.
+        If the file cannot be read, is not UTF-8 or holds no header.
     """
     file = Path(path)
     try:
@@ -69,8 +78,22 @@ def read_numeric_columns(path: Path | str, names: Sequence[str]) -> Columns:
     if not numbered:
         raise DataFileError(file, None, "holds no header and no data")
     rows = csv.reader([line for _, line in numbered])
-    header_line = numbered[0][0]
     header = [name.strip() for name in next(rows)]
+    body = [(number, row) for (number, _), row in zip(numbered[1:], rows, strict=True)]
+    return CsvText(file, header, numbered[0][0], body)
+
+
+def read_numeric_columns(path: Path | str, names: Sequence[str]) -> Columns:
+    """Read the named columns of a CSV file as floats.
+
+    Raises
+    ------
+    DataFileError
+        If the file cannot be read, has no header or lacks a column, or a cell is empty, not a
+        number, NaN or infinite; the message names the file, the line and the column.
+    """
+    table = read_csv_text(path)
+    file, header, header_line = table.file, table.header, table.header_line
     index = {}
     for name in names:
         if name not in header:
@@ -80,7 +103,7 @@ def read_numeric_columns(path: Path | str, names: Sequence[str]) -> Columns:
         index[name] = header.index(name)
     columns: dict[str, list[float]] = {name: [] for name in names}
     lines = []
-    for (number, _), row in zip(numbered[1:], rows, strict=True):
+    for number, row in table.rows:
         for name in names:
             position = index[name]
             cell = row[position].strip() if position < len(row) else ""
