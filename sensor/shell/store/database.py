@@ -238,3 +238,9 @@ class Store:
     def dispose(self) -> None:
         """Close the engine's connections (the Store can be used again afterwards)."""
         self.engine.dispose()
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *_: object) -> None:
+        self.dispose()

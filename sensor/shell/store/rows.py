@@ -13,7 +13,8 @@ Conventions
   ``<field>_us``, exact on every backend.
 - Numbers are in SI units inside sigmatrack (K, s, kg/kg solvent, m) except raw samples, which
   keep the plant units they came in (the site file says which). A float that is NaN means "no
-  value" and is stored as NULL; it reads back as ``None`` (and as NaN in arrays).
+  value" and is stored as NULL; it reads back as NaN, or as ``None`` for an optional field
+  (``float | None``), and as NaN in arrays.
 - Every row has a natural key (``KEY``): writing the same row twice stores it once. That is what
   makes the store loss-free without duplicates when a batch of rows is retried after an outage
   or a crash.
@@ -120,6 +121,8 @@ def _normalise(row: StoreRow, plan: FieldPlan, value: Any) -> Any:
             row._refuse(plan.name, f"must be a string; got {type(value).__name__}")
         if plan.key and not value:
             row._refuse(plan.name, "must not be empty (it is part of the row's key)")
+        if "\x00" in value:
+            row._refuse(plan.name, "must not hold a NUL character (PostgreSQL cannot store it)")
         return value
     if kind == "float":
         if type(value) is float:
@@ -146,8 +149,8 @@ def _normalise(row: StoreRow, plan: FieldPlan, value: Any) -> Any:
     # flags: a tuple of names, stored comma-separated
     if isinstance(value, str) or not all(isinstance(flag, str) and flag for flag in value):
         row._refuse(plan.name, f"must be a sequence of non-empty names; got {value!r}")
-    if any("," in flag for flag in value):
-        row._refuse(plan.name, f"a flag name cannot hold a comma; got {value!r}")
+    if any("," in flag or "\x00" in flag for flag in value):
+        row._refuse(plan.name, f"a flag name cannot hold a comma or NUL; got {value!r}")
     return value if type(value) is tuple else tuple(value)
 
 

@@ -3,7 +3,8 @@ written once.
 
 Each row type of :mod:`sensor.shell.store.rows` gives one table: a field becomes a column of the
 same name (a timestamp ``time`` becomes ``time_us``, integer microseconds since the Unix epoch),
-``str`` -> TEXT, ``float`` -> DOUBLE (nullable: NaN is stored as NULL), ``int`` -> BIGINT,
+``str`` -> TEXT, ``float`` -> DOUBLE (nullable: NaN is stored as NULL and reads back as NaN,
+or as ``None`` for an optional field), ``int`` -> BIGINT,
 ``bool`` -> BOOLEAN, flags -> TEXT (comma-separated), and the row's ``KEY`` is the primary key in
 that order (``samples`` is keyed ``unit_id, time_us, signal``, so one unit's samples are read in
 time order from the key). On SQLite the tables of small rows are ``WITHOUT ROWID`` (clustered on
@@ -20,6 +21,7 @@ database of another version is refused, never silently altered.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
@@ -98,6 +100,10 @@ def _bool_from_db(value: Any) -> Any:
     return None if value is None else bool(value)
 
 
+def _required_float_from_db(value: Any) -> Any:
+    return math.nan if value is None else value
+
+
 _TO_DB: Mapping[Kind, Callable[[Any], Any]] = {
     "time": _time_to_db,
     "float": _float_to_db,
@@ -153,10 +159,15 @@ class TableSpec:
                 for p in plans
             ),
             PrimaryKeyConstraint(*self.key_columns),
-            sqlite_with_rowid=row_type not in _LARGE_ROWS,
+            sqlite_with_rowid=row_type in _LARGE_ROWS,
         )
         self._to_db = tuple((p.name, _TO_DB.get(p.kind)) for p in plans)
-        self._from_db = tuple(_FROM_DB.get(p.kind) for p in plans)
+        self._from_db = tuple(
+            _required_float_from_db
+            if p.kind == "float" and not p.optional
+            else _FROM_DB.get(p.kind)
+            for p in plans
+        )
 
     def values(self, row: StoreRow) -> tuple[Any, ...]:
         """The row as database values, in the order of :attr:`columns`."""
