@@ -305,9 +305,8 @@ class StoreWriter:
 
     def _cycle(self) -> None:
         self._send_outbox()
-        if self._state is WriterState.QUEUEING and time.monotonic() >= self._retry_at:
-            self._state = WriterState.DRAINING
-        if self._state is WriterState.DRAINING:
+        retry_due = self._state is WriterState.QUEUEING and time.monotonic() >= self._retry_at
+        if retry_due or self._state is WriterState.DRAINING:
             self._drain(deadline=time.monotonic() + self.flush_interval_s)
             self._send_outbox()
 
@@ -336,11 +335,15 @@ class StoreWriter:
         while time.monotonic() < deadline:
             parcel = self.queue.peek()
             if parcel is None:
-                log.info("store %s: durable queue written; writing directly", self.store.url)
+                if self._state is not WriterState.WRITING:
+                    log.info("store %s: durable queue written; writing directly", self.store.url)
                 self._state = WriterState.WRITING
                 return
             if not self._write_queued(parcel):
                 return
+            if self._state is WriterState.QUEUEING:
+                log.info("store %s: back; writing the durable queue", self.store.url)
+                self._state = WriterState.DRAINING
 
     def _write_queued(self, parcel: QueuedParcel) -> bool:
         spec = SPECS_BY_TABLE.get(parcel.table_name)
