@@ -135,27 +135,47 @@ class DurableQueue:
     def push(
         self, table_name: str, columns: Sequence[str], values: Sequence[tuple[Any, ...]]
     ) -> bool:
-        """Append a parcel, durably; ``False`` (and nothing written) if it would pass
-        ``max_rows``.
+        """Append one parcel, durably; ``False`` (and nothing written) if it would pass
+        ``max_rows``."""
+        return self.push_many([(table_name, columns, values)]) == 1
+
+    def push_many(
+        self, parcels: Sequence[tuple[str, Sequence[str], Sequence[tuple[Any, ...]]]]
+    ) -> int:
+        """Append parcels ``(table_name, columns, values)`` in order, durably, in one
+        transaction, up to the first that would pass ``max_rows``.
+
+        Returns
+        -------
+        how many parcels were appended (from the front)
 
         Raises
         ------
         sqlite3.Error
-            If the queue's file cannot be written (a full disk).
+            If the queue's file cannot be written (a full disk); nothing is appended then.
         """
-        if self._rows + len(values) > self.max_rows:
-            return False
-        self._db.execute(
-            "INSERT INTO parcels (table_name, row_count, columns, rows) VALUES (?, ?, ?, ?)",
-            (table_name, len(values), json.dumps(list(columns)), json.dumps(values)),
-        )
-        self._rows += len(values)
-        return True
+        fitting, rows = 0, self._rows
+        for _, _, values in parcels:
+            if rows + len(values) > self.max_rows:
+                break
+            fitting, rows = fitting + 1, rows + len(values)
+        if fitting:
+            self._transaction(
+                "INSERT INTO parcels (table_name, row_count, columns, rows) VALUES (?, ?, ?, ?)",
+                [
+                    (name, len(values), json.dumps(list(columns)), json.dumps(values))
+                    for name, columns, values in parcels[:fitting]
+                ],
+            )
+            self._rows = rows
+        return fitting
 
-    def peek(self) -> QueuedParcel | None:
-        """The oldest parcel, left in the queue; ``None`` when the queue is empty."""
+    def peek(self, after: int = 0) -> QueuedParcel | None:
+        """The oldest parcel whose id is above ``after``, left in the queue; ``None`` if
+        there is none."""
         found = self._db.execute(
-            "SELECT id, table_name, columns, rows FROM parcels ORDER BY id LIMIT 1"
+            "SELECT id, table_name, columns, rows FROM parcels WHERE id > ? ORDER BY id LIMIT 1",
+            (after,),
         ).fetchone()
         if found is None:
             return None
@@ -167,10 +187,26 @@ class DurableQueue:
             [tuple(row) for row in json.loads(rows)],
         )
 
-    def remove(self, parcel: QueuedParcel) -> None:
-        """Remove a parcel once the database has committed it."""
-        self._db.execute("DELETE FROM parcels WHERE id = ?", (parcel.id,))
-        self._rows -= len(parcel.values)
+    def remove_through(self, parcel: QueuedParcel) -> None:
+        """Remove ``parcel`` and every older one, once the database has committed them.
+
+        One transaction for many parcels. If a crash undoes it, the parcels are written
+        again, which their rows' keys make harmless.
+        """
+        (removed,) = self._db.execute(
+            "SELECT coalesce(sum(row_count), 0) FROM parcels WHERE id <= ?", (parcel.id,)
+        ).fetchone()
+        self._transaction("DELETE FROM parcels WHERE id <= ?", [(parcel.id,)])
+        self._rows -= removed
+
+    def _transaction(self, statement: str, params: Sequence[tuple[Any, ...]]) -> None:
+        self._db.execute("BEGIN IMMEDIATE")
+        try:
+            self._db.executemany(statement, params)
+        except BaseException:
+            self._db.execute("ROLLBACK")
+            raise
+        self._db.execute("COMMIT")
 
     def keep_only(self, parcel: QueuedParcel, values: Sequence[tuple[Any, ...]]) -> None:
         """Keep only ``values`` (the rows not yet settled) of a parcel, in its place."""

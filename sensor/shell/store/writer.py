@@ -311,41 +311,51 @@ class StoreWriter:
             self._send_outbox()
 
     def _send_outbox(self) -> None:
-        """Write the outbox's parcels in order while the database takes them directly; queue
-        the rest while the durable queue has room."""
-        while self._outbox:
+        """Write the outbox's parcels in order while the database takes them directly; push
+        the rest to the durable queue while it has room."""
+        while self._outbox and self._state is WriterState.WRITING:
             spec, values = self._outbox[0]
-            if self._state is WriterState.WRITING:
-                settled = self._write(spec, values)
-                if settled:
-                    self._made_durable(settled)
-                if settled == len(values):
-                    self._outbox.pop(0)
-                    continue
-                values = values[settled:]
-                self._outbox[0] = (spec, values)
-            if not self.queue.push(spec.table.name, spec.columns, values):
-                return  # the queue is full: the parcel waits in memory
-            self._outbox.pop(0)
-            self._made_durable(len(values))
+            settled = self._write(spec, values)
+            self._made_durable(settled)
+            if settled == len(values):
+                self._outbox.pop(0)
+            else:
+                self._outbox[0] = (spec, values[settled:])
+        if self._outbox:
+            pushed = self.queue.push_many(
+                [(spec.table.name, spec.columns, values) for spec, values in self._outbox]
+            )
+            self._made_durable(sum(len(values) for _, values in self._outbox[:pushed]))
+            del self._outbox[:pushed]
 
     def _drain(self, deadline: float) -> None:
         """Write queued parcels to the database, oldest first, until the queue is empty (then
-        rows go straight to the database again), an outage, or ``deadline`` (monotonic [s])."""
-        while time.monotonic() < deadline:
-            parcel = self.queue.peek()
-            if parcel is None:
-                if self._state is not WriterState.WRITING:
-                    log.info("store %s: durable queue written; writing directly", self.store.url)
-                self._state = WriterState.WRITING
-                return
-            if not self._write_queued(parcel):
-                return
-            if self._state is WriterState.QUEUEING:
-                log.info("store %s: back; writing the durable queue", self.store.url)
-                self._state = WriterState.DRAINING
+        rows go straight to the database again), an outage, or ``deadline`` (monotonic [s]).
+        The parcels written leave the queue together at the end."""
+        done: QueuedParcel | None = None
+        try:
+            while time.monotonic() < deadline:
+                parcel = self.queue.peek(after=0 if done is None else done.id)
+                if parcel is None:
+                    if self._state is not WriterState.WRITING:
+                        log.info(
+                            "store %s: durable queue written; writing directly", self.store.url
+                        )
+                    self._state = WriterState.WRITING
+                    return
+                if not self._write_queued(parcel):
+                    return
+                done = parcel
+                if self._state is WriterState.QUEUEING:
+                    log.info("store %s: back; writing the durable queue", self.store.url)
+                    self._state = WriterState.DRAINING
+        finally:
+            if done is not None:
+                self.queue.remove_through(done)
 
     def _write_queued(self, parcel: QueuedParcel) -> bool:
+        """Write one queued parcel: ``True`` if it is settled, ``False`` after an outage (its
+        rows not yet settled stay in the queue, in the parcel's place)."""
         spec = SPECS_BY_TABLE.get(parcel.table_name)
         if spec is None or parcel.columns != spec.columns:  # queued by another version
             for value in parcel.values:
@@ -355,15 +365,11 @@ class StoreWriter:
                     value,
                     "queued with a table layout this version of sigmatrack does not write",
                 )
-            self.queue.remove(parcel)
             return True
         settled = self._write(spec, parcel.values)
-        if settled == len(parcel.values):
-            self.queue.remove(parcel)
-            return True
-        if settled:
+        if 0 < settled < len(parcel.values):
             self.queue.keep_only(parcel, parcel.values[settled:])
-        return False
+        return settled == len(parcel.values)
 
     def _write(self, spec: TableSpec, values: list[tuple[Any, ...]]) -> int:
         """Write a parcel to the database; returns how many of its rows, from the front, are

@@ -33,10 +33,17 @@ class TcpProxy:
         self._lock = threading.Lock()
 
     def restore(self) -> TcpProxy:
+        """Listen (again); nothing happens if it already listens."""
+        if self._listener is not None:
+            return self
         listener = socket.socket()
-        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-        listener.bind(("127.0.0.1", self.port))
-        listener.listen(16)
+        try:
+            listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+            listener.bind(("127.0.0.1", self.port))
+            listener.listen(16)
+        except OSError:
+            listener.close()
+            raise
         self._listener = listener
         self._spawn(self._accept, listener)
         return self

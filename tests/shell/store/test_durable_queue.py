@@ -33,12 +33,12 @@ def test_parcels_come_back_first_in_first_out_and_exact(tmp_path):
         first = queue.peek()
         assert first is not None
         assert (first.table_name, first.columns, first.values) == ("samples", COLUMNS, AWKWARD[:2])
-        queue.remove(first)
+        queue.remove_through(first)
         second = queue.peek()
         assert second is not None
         assert second.values == AWKWARD[2:]
         assert str(second.values[1][2]) == "-0.0"
-        queue.remove(second)
+        queue.remove_through(second)
         assert queue.peek() is None
         assert queue.rows == 0
 
@@ -59,6 +59,21 @@ def test_a_parcel_that_would_pass_the_bound_is_refused_and_nothing_is_dropped(tm
         assert not queue.push("samples", COLUMNS, AWKWARD[:2])
         assert queue.push("samples", COLUMNS, AWKWARD[:1])
         assert (queue.rows, len(queue)) == (5, 2)
+
+
+def test_parcels_are_pushed_together_up_to_the_bound_and_removed_together(tmp_path):
+    with DurableQueue(tmp_path / "q", 6) as queue:
+        parcels = [("samples", COLUMNS, AWKWARD[:2])] * 4
+        assert queue.push_many(parcels) == 3  # the fourth would pass 6 rows
+        first = queue.peek()
+        assert first is not None
+        second = queue.peek(after=first.id)
+        assert second is not None
+        assert second.id > first.id
+        queue.remove_through(second)  # and the older one with it
+        assert (queue.rows, len(queue)) == (2, 1)
+    with DurableQueue(tmp_path / "q", 6) as queue:
+        assert queue.rows == 2
 
 
 def test_a_parcel_can_shrink_in_its_place(tmp_path):
