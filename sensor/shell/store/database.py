@@ -137,7 +137,7 @@ class Store:
             options["schema_translate_map"] = {None: schema}
         self.engine: Engine = engine.execution_options(**options)
         self._schema_ready = False
-        self._statements: dict[str, Insert] = {}
+        self._statements: dict[str, Insert | str] = {}
 
     def __repr__(self) -> str:
         return f"Store({self.url!r})"
@@ -201,19 +201,30 @@ class Store:
 
     def _execute(self, conn: Connection, spec: TableSpec, rows: list[tuple[Any, ...]]) -> int:
         statement = self._statement(spec)
-        if self.backend == "postgresql" and not spec.upsert_columns:
-            arrays = dict(zip(spec.columns, map(list, zip(*rows, strict=True)), strict=True))
-            return conn.execute(statement, arrays).rowcount
-        params = [dict(zip(spec.columns, row, strict=True)) for row in rows]
-        return conn.execute(statement, params).rowcount
+        if isinstance(statement, str):  # SQLite insert-or-ignore: the driver's executemany
+            return conn.exec_driver_sql(statement, rows).rowcount
+        if spec.upsert_columns:
+            params = [dict(zip(spec.columns, row, strict=True)) for row in rows]
+            return conn.execute(statement, params).rowcount
+        arrays = dict(zip(spec.columns, map(list, zip(*rows, strict=True)), strict=True))
+        return conn.execute(statement, arrays).rowcount
 
-    def _statement(self, spec: TableSpec) -> Insert:
+    def _statement(self, spec: TableSpec) -> Insert | str:
         name = spec.table.name
         if name not in self._statements:
             self._statements[name] = self._build_statement(spec)
         return self._statements[name]
 
-    def _build_statement(self, spec: TableSpec) -> Insert:
+    def _build_statement(self, spec: TableSpec) -> Insert | str:
+        """The statement that writes a parcel of ``spec``'s table:
+
+        - upsert tables: ``INSERT ... ON CONFLICT (key) DO UPDATE``, executemany;
+        - SQLite: ``INSERT ... ON CONFLICT DO NOTHING`` compiled once to SQL with positional
+          parameters in the order of ``spec.columns``, so that the parcel's tuples go to the
+          driver's executemany as they are (no per-row dictionaries: about twice the rows/s);
+        - PostgreSQL: ``INSERT ... SELECT FROM unnest(arrays) ON CONFLICT DO NOTHING``, one
+          statement per parcel with one array per column.
+        """
         table = spec.table
         dialect = postgresql if self.backend == "postgresql" else sqlite
         if spec.upsert_columns:
@@ -225,8 +236,12 @@ class Store:
                 },
             )
         if self.backend == "sqlite":
-            return sqlite.insert(table).on_conflict_do_nothing()
-        # PostgreSQL: one statement per parcel, the columns passed as arrays.
+            compiled = (
+                sqlite.insert(table).on_conflict_do_nothing().compile(dialect=self.engine.dialect)
+            )
+            if tuple(compiled.positiontup or ()) != spec.columns:
+                raise AssertionError(f"{table.name}: parameters out of column order")
+            return str(compiled)
         arrays = [sql_bindparam(c, type_=postgresql.ARRAY(table.c[c].type)) for c in spec.columns]
         source = func.unnest(*arrays).table_valued(*spec.columns).render_derived()
         return (

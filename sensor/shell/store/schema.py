@@ -22,6 +22,7 @@ database of another version is refused, never silently altered.
 from __future__ import annotations
 
 import math
+import operator
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
@@ -130,6 +131,7 @@ class TableSpec:
 
     __slots__ = (
         "_from_db",
+        "_get",
         "_to_db",
         "columns",
         "key_columns",
@@ -161,7 +163,8 @@ class TableSpec:
             PrimaryKeyConstraint(*self.key_columns),
             sqlite_with_rowid=row_type in _LARGE_ROWS,
         )
-        self._to_db = tuple((p.name, _TO_DB.get(p.kind)) for p in plans)
+        self._get = operator.attrgetter(*(p.name for p in plans))
+        self._to_db = tuple((i, _TO_DB[p.kind]) for i, p in enumerate(plans) if p.kind in _TO_DB)
         self._from_db = tuple(
             _required_float_from_db
             if p.kind == "float" and not p.optional
@@ -171,10 +174,10 @@ class TableSpec:
 
     def values(self, row: StoreRow) -> tuple[Any, ...]:
         """The row as database values, in the order of :attr:`columns`."""
-        return tuple(
-            getattr(row, name) if convert is None else convert(getattr(row, name))
-            for name, convert in self._to_db
-        )
+        values = list(self._get(row))
+        for i, convert in self._to_db:
+            values[i] = convert(values[i])
+        return tuple(values)
 
     def row(self, values: Sequence[Any]) -> StoreRow:
         """The row back from database values in the order of :attr:`columns`."""
