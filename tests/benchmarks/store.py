@@ -14,6 +14,7 @@ it (skipped, saying why, when the server cannot be reached), it measures for raw
   rows to database values included (target: at least 100,000 sample rows/s);
 - through the writer: ``StoreWriter.put`` of every row from the calling thread, then
   ``flush``: rows/s end to end, and what ``put`` costs the producer per row;
+- reading a batch of samples back with ``read_batch`` (rows built as dataclasses);
 - on PostgreSQL also the server alone inserting rows it makes itself (``generate_series``),
   the ceiling any client can reach on this machine.
 
@@ -36,7 +37,15 @@ from pathlib import Path
 
 import numpy as np
 
-from sensor.shell.store import EstimateRow, SampleRow, Store, StoreRow, StoreWriter
+from sensor.shell.store import (
+    BatchRow,
+    EstimateRow,
+    SampleRow,
+    Store,
+    StoreRow,
+    StoreWriter,
+    read_batch,
+)
 from sensor.shell.store.durable_queue import DurableQueue
 from sensor.shell.store.schema import group_values
 
@@ -81,6 +90,25 @@ def write_batched(store: Store, rows: Sequence[StoreRow]) -> None:
 def write_one_commit_per_row(store: Store, rows: Sequence[StoreRow]) -> None:
     for spec, values in group_values(rows, 1):
         store.write(spec, values)
+
+
+def read_back_rows_per_s(store: Store, rows: int, first: int) -> float:
+    """Rows/s of ``read_batch`` on a batch of ``rows`` samples (rows and dataclasses built)."""
+    batch_id = f"bench-{first}"
+    start_time = T0 + timedelta(seconds=first)
+    write_batched(
+        store,
+        [
+            BatchRow("CR-301", batch_id, start_time, start_time + timedelta(seconds=rows - 1)),
+            *samples(rows, first=first),
+        ],
+    )
+    start = time.perf_counter()
+    record = read_batch(store, batch_id)
+    seconds = time.perf_counter() - start
+    if len(record.samples) != rows:
+        raise RuntimeError(f"read {len(record.samples)} samples of {rows}")
+    return rows / seconds
 
 
 def through_writer(store: Store, queue_dir: Path, rows: Sequence[StoreRow]) -> tuple[float, float]:
@@ -139,6 +167,8 @@ def measure(name: str, store: Store, folder: Path, rows: int, repeats: int) -> l
             rows_per_s(write_batched, store, make(rows, first=next(offsets)))
             for _ in range(repeats)
         )
+        if kind == "samples":
+            read = max(read_back_rows_per_s(store, rows, next(offsets)) for _ in range(repeats))
         end_to_end, put_us = max(
             through_writer(store, folder / f"queue-{kind}-{i}", make(rows, first=next(offsets)))
             for i in range(repeats)
@@ -147,6 +177,8 @@ def measure(name: str, store: Store, folder: Path, rows: int, repeats: int) -> l
             f"{name} {kind}: one commit per row {one:,.0f} rows/s; batched {batched:,.0f} rows/s; "
             f"through the writer {end_to_end:,.0f} rows/s (put {put_us:.2f} us/row)"
         )
+        if kind == "samples":
+            print(f"{name} samples read back with read_batch: {read:,.0f} rows/s")
         target = f" (target {BATCHED_TARGET:,.0f} rows/s)" if kind == "samples" else ""
         print(f"{name} {kind} batched vs one commit per row: {batched / one:.0f}x{target}")
         if kind == "samples" and store.backend == "postgresql":

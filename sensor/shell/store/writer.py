@@ -163,6 +163,7 @@ class StoreWriter:
         self._duplicates = 0
         self._rejected = 0
         self._last_error: str | None = None
+        self._last_unexpected: str | None = None
         self._thread = threading.Thread(target=self._run, name="sigmatrack-store", daemon=True)
 
     @classmethod
@@ -254,7 +255,9 @@ class StoreWriter:
         with self._lock:
             self._stopping = True
         self._wake.set()
-        if self._thread.is_alive():
+        if self._thread.ident is None:  # never started: do its last cycle here
+            self._run()
+        elif self._thread.is_alive():
             self._thread.join(timeout_s)
         if self._thread.is_alive():
             log.error("store writer still busy after %.1f s; leaving it to finish", timeout_s)
@@ -287,8 +290,14 @@ class StoreWriter:
             self._outbox += group_values(rows, self.batch_rows)
             try:
                 self._cycle()
-            except Exception:  # e.g. the durable queue's disk failing; the outbox keeps the rows
-                log.exception("store writer: unexpected error; rows not yet durable are kept")
+            except Exception as error:  # e.g. the queue's disk failing; the outbox keeps the rows
+                if (
+                    _one_line(error) != self._last_unexpected
+                ):  # once per kind of error, not per cycle
+                    log.exception("store writer: unexpected error; rows not yet durable are kept")
+                self._last_unexpected = _one_line(error)
+            else:
+                self._last_unexpected = None
             if not self._outbox:
                 with self._settled:
                     self._settled_through = taken

@@ -107,6 +107,13 @@ def test_rows_sent_twice_are_stored_once_and_counted(backend, open_writer):
     assert (status.written_rows, status.duplicate_rows) == (150, 50)
 
 
+def test_a_writer_closed_without_starting_still_writes_what_it_was_given(backend, tmp_path):
+    writer = StoreWriter(backend.store(), DurableQueue(tmp_path / "queue", 100))
+    writer.put_many(sample_rows(10))
+    assert writer.close()
+    assert stored(backend) == expected(sample_rows(10))
+
+
 def test_a_closed_writer_refuses_rows(backend, open_writer):
     writer = open_writer(backend.store())
     assert writer.close()
