@@ -50,14 +50,18 @@ def _sqlite_pragmas(dbapi_connection: sqlite3.Connection, _record: Any) -> None:
 
 
 def is_outage(error: BaseException) -> bool:
-    """Whether ``error`` means the database cannot be reached or written for now (connection
-    refused or lost, file cannot be opened, locked, read-only, full), so that the rows should
-    wait and be retried; anything else means the rows themselves cannot be written."""
-    if isinstance(error, StoreError):  # e.g. a database of another schema version
+    """Whether ``error`` means the database cannot take rows for now, so that they should wait
+    and be retried: connection refused or lost, file that cannot be opened, locked, read-only or
+    full (``OperationalError``, ``InterfaceError``), a database not in a state to take rows (no
+    such table, no privilege: ``ProgrammingError``, SQLSTATE class 42), tables that cannot be
+    created or are of another schema version (:class:`StoreError`). Anything else (a value or
+    constraint error, classes 22 and 23, or a trigger refusing a row) means the rows
+    themselves cannot be written."""
+    if isinstance(error, StoreError):
         return True
     if isinstance(error, exc.DBAPIError):
         return error.connection_invalidated or isinstance(
-            error, exc.OperationalError | exc.InterfaceError
+            error, exc.OperationalError | exc.InterfaceError | exc.ProgrammingError
         )
     return isinstance(error, exc.TimeoutError | ConnectionError | TimeoutError)
 
@@ -189,10 +193,18 @@ class Store:
 
         Raises
         ------
+        StoreError
+            If the tables cannot be created or checked (another schema version, no privilege).
         sqlalchemy.exc.DBAPIError
-            On any database error; nothing of the parcel is written then.
+            On any other database error; nothing of the parcel is written then.
         """
-        self.ensure_schema()
+        try:
+            self.ensure_schema()
+        except exc.DBAPIError as error:
+            if error.connection_invalidated or isinstance(error, exc.OperationalError):
+                raise
+            first = (str(error.orig).strip().splitlines() or [type(error).__name__])[0]
+            raise StoreError(self.url, f"cannot create or check the tables ({first})") from error
         rows = spec.merge(values)
         if not rows:
             return 0

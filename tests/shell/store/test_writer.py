@@ -9,14 +9,17 @@ with its value. Every wait is bounded.
 from __future__ import annotations
 
 import logging
+import os
 import sqlite3
 import threading
+import uuid
 from collections.abc import Callable, Iterator
 from datetime import timedelta
 from pathlib import Path
 
 import pytest
 from sqlalchemy import event
+from sqlalchemy.engine import make_url
 
 from sensor.shell.store import SampleRow, Store, StoreWriter, WriterState
 from sensor.shell.store.durable_queue import DurableQueue
@@ -289,3 +292,30 @@ def test_a_parcel_queued_with_another_layout_is_set_aside(backend, open_writer):
     writer.put_many(sample_rows(10))
     assert writer.flush(WAIT_S)
     assert count_stored(backend) == 10
+
+
+@pytest.mark.postgres
+def test_a_database_refusing_the_tables_holds_the_rows_until_it_is_fixed(postgres, open_writer):
+    # A role without the privilege to create the tables: a database not in a state to take
+    # rows (SQLSTATE class 42), which must hold the rows back, not refuse them one by one.
+    role = f"sigmatrack_test_{os.getpid()}_{uuid.uuid4().hex[:6]}"
+    postgres.execute(f'CREATE ROLE "{role}" LOGIN')
+    database = make_url(postgres.url).database
+    try:
+        url = make_url(postgres.url).set(username=role).render_as_string(False)
+        writer = open_writer(Store(url, schema=postgres.schema), batch_rows=100)
+        rows = sample_rows(500)
+        writer.put_many(rows)
+        wait_until(lambda: writer.status().queued_rows == 500, WAIT_S, "the rows queued")
+        last_error = writer.status().last_error or ""
+        assert "cannot create or check the tables" in last_error
+        assert "permission denied" in last_error
+        assert writer.status().rejected_rows == 0
+        postgres.execute(f'GRANT CREATE ON DATABASE "{database}" TO "{role}"')
+        wait_until(lambda: _all_written(writer), WAIT_S, "the rows written once allowed")
+        assert stored(postgres) == expected(rows)
+        assert writer.close()
+    finally:
+        postgres.execute(f'DROP SCHEMA IF EXISTS "{postgres.schema}" CASCADE')
+        postgres.execute(f'REVOKE ALL ON DATABASE "{database}" FROM "{role}"')
+        postgres.execute(f'DROP ROLE "{role}"')
