@@ -49,20 +49,38 @@ def _sqlite_pragmas(dbapi_connection: sqlite3.Connection, _record: Any) -> None:
     cursor.close()
 
 
+ROW_SQLSTATE_CLASSES = ("22", "23", "P0")
+"""PostgreSQL SQLSTATE classes that are about the row written: data exception, integrity
+constraint violation, and a PL/pgSQL ``RAISE`` (a trigger refusing it). PostgreSQL
+documentation, Appendix A "PostgreSQL Error Codes"."""
+
+
 def is_outage(error: BaseException) -> bool:
     """Whether ``error`` means the database cannot take rows for now, so that they should wait
-    and be retried: connection refused or lost, file that cannot be opened, locked, read-only or
-    full (``OperationalError``, ``InterfaceError``), a database not in a state to take rows (no
-    such table, no privilege: ``ProgrammingError``, SQLSTATE class 42), tables that cannot be
-    created or are of another schema version (:class:`StoreError`). Anything else (a value or
-    constraint error, classes 22 and 23, or a trigger refusing a row) means the rows
-    themselves cannot be written."""
+    and be retried, rather than that these rows cannot be written.
+
+    - PostgreSQL (errors carry a SQLSTATE): every class but :data:`ROW_SQLSTATE_CLASSES` is an
+      outage: connection exceptions (08), no such table or no privilege (42), insufficient
+      resources such as a full disk (53), an administrator's shutdown (57), deadlocks and
+      serialisation failures (40), ...
+    - SQLite (no SQLSTATE): everything but ``IntegrityError`` and ``DataError`` (a file that
+      cannot be opened, is locked, read-only or full; no such table).
+    - A lost connection, a timeout, tables that cannot be created or are of another schema
+      version (:class:`StoreError`).
+
+    Holding rows back is the safe side: a doubtful error keeps them in the durable queue and
+    shows in the writer's status, where setting them aside would need a person to put them
+    back.
+    """
     if isinstance(error, StoreError):
         return True
     if isinstance(error, exc.DBAPIError):
-        return error.connection_invalidated or isinstance(
-            error, exc.OperationalError | exc.InterfaceError | exc.ProgrammingError
-        )
+        if error.connection_invalidated:
+            return True
+        sqlstate = getattr(error.orig, "sqlstate", None)
+        if isinstance(sqlstate, str) and len(sqlstate) == 5:
+            return sqlstate[:2] not in ROW_SQLSTATE_CLASSES
+        return not isinstance(error, exc.IntegrityError | exc.DataError)
     return isinstance(error, exc.TimeoutError | ConnectionError | TimeoutError)
 
 

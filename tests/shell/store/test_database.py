@@ -230,6 +230,29 @@ def test_outages_are_told_from_refused_rows(tmp_path, backend):
     assert "refused by the test trigger" in str(refused)
 
 
+@pytest.mark.parametrize(
+    ("sqlstate", "outage"),
+    [
+        ("08006", True),  # connection failure
+        ("40P01", True),  # deadlock detected: retry
+        ("42501", True),  # insufficient privilege: the database is not ready for rows
+        ("42P01", True),  # undefined table
+        ("53100", True),  # disk full
+        ("57P01", True),  # administrator shutdown
+        ("22P02", False),  # invalid text representation: this row's value
+        ("23505", False),  # unique violation: this row
+        ("P0001", False),  # raise_exception: a trigger refusing this row
+    ],
+)
+def test_postgresql_errors_are_told_apart_by_their_sqlstate(sqlstate, outage):
+    # Reference: PostgreSQL documentation, Appendix A "PostgreSQL Error Codes", through
+    # psycopg's table of SQLSTATE classes (psycopg.errors.lookup).
+    psycopg = pytest.importorskip("psycopg")
+    orig = psycopg.errors.lookup(sqlstate)("from the server")
+    error = exc.DBAPIError.instance("INSERT ...", {}, orig, psycopg.Error)
+    assert is_outage(error) is outage
+
+
 def install_refusing_trigger(backend) -> None:
     """A trigger that refuses samples with value 1e300: a database refusing a row for what it
     holds (not an outage), on either backend."""
