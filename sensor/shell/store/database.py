@@ -10,13 +10,15 @@ table, up to a few thousand rows) per transaction, insert-or-ignore on each row'
   lose the last commits, never corrupt the file) and waits up to
   :data:`SQLITE_BUSY_TIMEOUT_S` for a lock. Parcels are written with ``executemany``.
 - PostgreSQL: ``postgresql+psycopg://user@host:port/database`` (install the ``postgres``
-  extra). No password in the URL: libpq reads ``PGPASSWORD`` or the file ``PGPASSFILE``
-  (``~/.pgpass``). An optional schema keeps the tables apart (one per site or test run).
-  Parcels are written as one ``INSERT ... SELECT FROM unnest(arrays)``: one statement per
-  parcel, about twice the speed of ``executemany`` here.
+  extra). Keep the password out of the URL (the site file refuses one): libpq reads
+  ``PGPASSWORD`` or the file ``PGPASSFILE`` (``~/.pgpass``). An optional schema keeps the
+  tables apart (one per site or test run). Parcels are written as one
+  ``INSERT ... SELECT FROM unnest(arrays)``: one statement per parcel, about twice the rows/s
+  of ``executemany`` on this project's machine.
 
-:func:`is_outage` tells an error that means "the database cannot be reached or written now"
-(wait and retry) from one that means "this row cannot be written" (set it aside).
+:func:`is_outage` tells an error that means "the database cannot take rows now" (wait and
+retry) from one that means "this row cannot be written" (set it aside): on PostgreSQL by the
+error's SQLSTATE class.
 """
 
 from __future__ import annotations
