@@ -13,8 +13,8 @@ table, up to a few thousand rows) per transaction, insert-or-ignore on each row'
   extra). Keep the password out of the URL (the site file refuses one): libpq reads
   ``PGPASSWORD`` or the file ``PGPASSFILE`` (``~/.pgpass``). An optional schema keeps the
   tables apart (one per site or test run). Parcels are written as one
-  ``INSERT ... SELECT FROM unnest(arrays)``: one statement per parcel, about twice the rows/s
-  of ``executemany`` on this project's machine.
+  ``INSERT ... SELECT FROM unnest(arrays)`` with binary parameters: one statement per parcel,
+  about twice the rows/s of ``executemany`` on this project's machine.
 
 :func:`is_outage` tells an error that means "the database cannot take rows now" (wait and
 retry) from one that means "this row cannot be written" (set it aside): on PostgreSQL by the
@@ -27,7 +27,17 @@ import sqlite3
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import Connection, Engine, create_engine, event, exc, func, inspect, select
+from sqlalchemy import (
+    Connection,
+    Engine,
+    MetaData,
+    create_engine,
+    event,
+    exc,
+    func,
+    inspect,
+    select,
+)
 from sqlalchemy import bindparam as sql_bindparam
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.engine import URL, make_url
@@ -233,13 +243,13 @@ class Store:
 
     def _execute(self, conn: Connection, spec: TableSpec, rows: list[tuple[Any, ...]]) -> int:
         statement = self._statement(spec)
-        if isinstance(statement, str):  # SQLite insert-or-ignore: the driver's executemany
-            return conn.exec_driver_sql(statement, rows).rowcount
-        if spec.upsert_columns:
-            params = [dict(zip(spec.columns, row, strict=True)) for row in rows]
-            return conn.execute(statement, params).rowcount
-        arrays = dict(zip(spec.columns, map(list, zip(*rows, strict=True)), strict=True))
-        return conn.execute(statement, arrays).rowcount
+        if isinstance(statement, str):  # insert-or-ignore, SQL for the driver (see below)
+            if self.backend == "sqlite":
+                return conn.exec_driver_sql(statement, rows).rowcount
+            arrays = dict(zip(spec.columns, map(list, zip(*rows, strict=True)), strict=True))
+            return conn.exec_driver_sql(statement, arrays).rowcount
+        params = [dict(zip(spec.columns, row, strict=True)) for row in rows]
+        return conn.execute(statement, params).rowcount
 
     def _statement(self, spec: TableSpec) -> Insert | str:
         name = spec.table.name
@@ -250,12 +260,15 @@ class Store:
     def _build_statement(self, spec: TableSpec) -> Insert | str:
         """The statement that writes a parcel of ``spec``'s table:
 
-        - upsert tables: ``INSERT ... ON CONFLICT (key) DO UPDATE``, executemany;
+        - upsert tables: ``INSERT ... ON CONFLICT (key) DO UPDATE``, executemany of
+          dictionaries (few rows);
         - SQLite: ``INSERT ... ON CONFLICT DO NOTHING`` compiled once to SQL with positional
           parameters in the order of ``spec.columns``, so that the parcel's tuples go to the
           driver's executemany as they are (no per-row dictionaries: about twice the rows/s);
         - PostgreSQL: ``INSERT ... SELECT FROM unnest(arrays) ON CONFLICT DO NOTHING``, one
-          statement per parcel with one array per column.
+          statement per parcel with one array per column, compiled once (schema included) and
+          sent with psycopg's binary placeholders ``%(name)b``, which spare the server parsing
+          every element as text (about 20 % more rows/s here).
         """
         table = spec.table
         dialect = postgresql if self.backend == "postgresql" else sqlite
@@ -274,13 +287,21 @@ class Store:
             if tuple(compiled.positiontup or ()) != spec.columns:
                 raise AssertionError(f"{table.name}: parameters out of column order")
             return str(compiled)
+        if self.schema is not None:
+            table = table.to_metadata(MetaData(), schema=self.schema)
         arrays = [sql_bindparam(c, type_=postgresql.ARRAY(table.c[c].type)) for c in spec.columns]
         source = func.unnest(*arrays).table_valued(*spec.columns).render_derived()
-        return (
+        sql = str(
             postgresql.insert(table)
             .from_select(list(spec.columns), select(*source.c))
             .on_conflict_do_nothing()
+            .compile(dialect=self.engine.dialect)
         )
+        for column in spec.columns:
+            if sql.count(f"%({column})s") != 1:
+                raise AssertionError(f"{table.name}: no single parameter for {column}")
+            sql = sql.replace(f"%({column})s", f"%({column})b")
+        return sql
 
     def dispose(self) -> None:
         """Close the engine's connections (the Store can be used again afterwards)."""
