@@ -20,6 +20,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
+from controller.alarm_set import AlarmSettings
+from controller.guard import Fallback, GuardLimits
+from controller.law import LawSettings
 from sensor.errors import SiteConfigError
 from sensor.shell.tomlschema import (
     Invalid,
@@ -31,6 +34,7 @@ from sensor.shell.tomlschema import (
     positive,
     read_table,
 )
+from sensor.units import celsius_to_kelvin, per_minute_to_per_second
 
 BATCH_PHASES = (
     "idle",
@@ -175,40 +179,123 @@ class ValidationConfig:
 
 @dataclass(frozen=True)
 class ControllerConfig:
+    """The cooling-rate advisor's law (``controller.law``)."""
+
     target_fraction_of_zone: float = field(default=0.5, metadata=check(open_fraction))
+    target_zone_rate_k_per_min: float = field(default=0.3, metadata=check(positive))
     confidence_k: float = field(default=2.0, metadata=check(non_negative))
     horizon_s: float = field(default=1200.0, metadata=check(positive))
     update_interval_s: float = field(default=30.0, metadata=check(positive))
-    low_sigma_fraction: float = field(default=0.15, metadata=check(open_fraction))
-    fallback: Literal["hold-rate", "recipe"] = "recipe"
+    dissolution_sigma: float = -0.05
+
+    def __post_init__(self) -> None:
+        if not -1.0 < self.dissolution_sigma < 0.0:
+            raise Invalid(
+                "dissolution_sigma",
+                f"must be between -1 and 0 (an undersaturation); got {self.dissolution_sigma}",
+            )
+
+    def law_settings(self, zone_min_rate_k_per_s: float) -> LawSettings:
+        """The law's settings in SI; ``zone_min_rate_k_per_s`` is the slowest rate the
+        metastable zone was measured at [K/s]."""
+        return LawSettings(
+            target_fraction=self.target_fraction_of_zone,
+            confidence_k=self.confidence_k,
+            horizon_s=self.horizon_s,
+            interval_s=self.update_interval_s,
+            target_zone_rate_k_per_s=float(
+                per_minute_to_per_second(self.target_zone_rate_k_per_min)
+            ),
+            zone_min_rate_k_per_s=zone_min_rate_k_per_s,
+            dissolution_sigma=self.dissolution_sigma,
+        )
 
 
 @dataclass(frozen=True)
 class GuardConfig:
+    """The guard's limits (``controller.guard``)."""
+
     setpoint_range_c: tuple[float, float] = field(metadata=check(ascending_pair))
     final_temp_c: float
     max_cooling_rate_k_per_min: float = field(metadata=check(positive))
     max_heating_rate_k_per_min: float = field(default=0.0, metadata=check(non_negative))
     max_step_k: float = field(default=0.5, metadata=check(positive))
     proposal_phases: tuple[str, ...] = ("controlled-cooling",)
+    heating_phases: tuple[str, ...] = ()
     heartbeat_period_s: float = field(default=10.0, metadata=check(positive))
+    fallback: Literal["hold-rate", "recipe"] = "recipe"
 
     def __post_init__(self) -> None:
         lo, hi = self.setpoint_range_c
         if not lo <= self.final_temp_c <= hi:
             raise Invalid("final_temp_c", f"must lie inside setpoint_range_c {[lo, hi]}")
-        for i, phase in enumerate(self.proposal_phases):
-            if phase not in BATCH_PHASES:
-                raise Invalid(f"proposal_phases[{i}]", f"unknown phase {phase!r}")
+        for key in ("proposal_phases", "heating_phases"):
+            for i, phase in enumerate(getattr(self, key)):
+                if phase not in BATCH_PHASES:
+                    raise Invalid(f"{key}[{i}]", f"unknown phase {phase!r}")
+        for i, phase in enumerate(self.heating_phases):
+            if phase not in self.proposal_phases:
+                raise Invalid(f"heating_phases[{i}]", f"{phase!r} is not in proposal_phases")
+        if self.heating_phases and self.max_heating_rate_k_per_min == 0.0:
+            raise Invalid(
+                "max_heating_rate_k_per_min", "must be positive when heating_phases are given"
+            )
+
+    def limits(self, interval_s: float) -> GuardLimits:
+        """The guard's limits in SI, for updates every ``interval_s`` [s]."""
+        lo, hi = celsius_to_kelvin(self.setpoint_range_c)
+        return GuardLimits(
+            setpoint_range_k=(float(lo), float(hi)),
+            final_temp_k=float(celsius_to_kelvin(self.final_temp_c)),
+            max_cooling_rate_k_per_s=float(
+                per_minute_to_per_second(self.max_cooling_rate_k_per_min)
+            ),
+            max_step_k=self.max_step_k,
+            interval_s=interval_s,
+            proposal_phases=frozenset(self.proposal_phases),
+            heartbeat_period_s=self.heartbeat_period_s,
+            max_heating_rate_k_per_s=float(
+                per_minute_to_per_second(self.max_heating_rate_k_per_min)
+            ),
+            heating_phases=frozenset(self.heating_phases),
+            fallback=Fallback(self.fallback),
+        )
 
 
 @dataclass(frozen=True)
 class AlarmsConfig:
+    """The alarms' limits and timing (``controller.alarm_set``)."""
+
     sigma_high_fraction: float = field(default=0.8, metadata=check(open_fraction))
     on_delay_s: float = field(default=30.0, metadata=check(non_negative))
     off_delay_s: float = field(default=60.0, metadata=check(non_negative))
     deadband_fraction: float = field(default=0.05, metadata=check(open_fraction))
     shelve_max_s: float = field(default=8 * 3600.0, metadata=check(positive))
+    tracking_error_k: float = field(default=2.0, metadata=check(positive))
+    drift_limit_fraction: float = field(default=0.03, metadata=check(open_fraction))
+    seed_window_fraction: tuple[float, float] = field(
+        default=(0.3, 0.6), metadata=check(ascending_pair)
+    )
+
+    def __post_init__(self) -> None:
+        low, high = self.seed_window_fraction
+        if not (low > 0.0 and high < 1.0):
+            raise Invalid("seed_window_fraction", f"must lie between 0 and 1; got {[low, high]}")
+
+    def settings(self, heating_phases: tuple[str, ...] = ()) -> AlarmSettings:
+        """The alarms' settings; ``heating_phases`` (``guard.heating_phases``) are the phases
+        where undersaturation is intended."""
+        return AlarmSettings(
+            sigma_high_fraction=self.sigma_high_fraction,
+            on_delay_s=self.on_delay_s,
+            off_delay_s=self.off_delay_s,
+            deadband_fraction=self.deadband_fraction,
+            shelve_max_s=self.shelve_max_s,
+            tracking_error_k=self.tracking_error_k,
+            drift_limit_fraction=self.drift_limit_fraction,
+            seed_window_fraction=self.seed_window_fraction,
+            heating_phases=frozenset(heating_phases),
+        )
 
 
 SQL_SCHEMA_NAME = re.compile(r"[a-z_][a-z0-9_]{0,62}")

@@ -9,7 +9,8 @@ every message names the file and the dotted key. Cross-field rules live in the d
 Supported annotations: ``str``, ``int``, ``float`` (an integer is accepted; NaN and infinities
 are refused), ``bool``, ``Path`` (resolved against the file's folder), ``Literal[...]``,
 ``X | None`` (optional: absent means ``None``), ``X | Y`` (the first that fits),
-``tuple[X, ...]``, ``tuple[X, Y]``, ``dict[str, X]``, nested dataclasses, and classes with a
+``tuple[X, ...]``, ``tuple[X, Y]``, ``dict[str, X]``, ``Any`` (kept raw), nested dataclasses,
+and classes with a
 ``from_toml(value, key, file)`` classmethod for values that take more than one form.
 """
 
@@ -123,6 +124,8 @@ def read_table(cls: type[T], table: Any, file: Path, prefix: str = "") -> T:
 
 def read_value(annotation: Any, value: Any, file: Path, key: str) -> Any:
     """Convert one TOML value to ``annotation``, or raise naming ``key``."""
+    if annotation is Any:
+        return value  # kept raw: validated by whoever owns it (the [simulator] table)
     origin = typing.get_origin(annotation)
     args = typing.get_args(annotation)
     if origin in (typing.Union, types.UnionType):

@@ -96,8 +96,8 @@ def test_every_key_is_documented_in_the_demo_site_file(cls):
             r"filter\.kind: must be one of 'ukf', 'ekf'; got 'kalman'",
         ),
         (
-            "final_temp_c = 10.0",
-            "final_temp_c = 95.0",
+            "final_temp_c = 10.0                       # never propose",
+            "final_temp_c = 95.0                       # never propose",
             r"guard\.final_temp_c: must lie inside setpoint_range_c",
         ),
         (
