@@ -48,6 +48,7 @@ from sqlalchemy.engine import make_url
 from sensor.shell.config import StoreConfig
 from sensor.shell.store.database import Store, is_outage
 from sensor.shell.store.durable_queue import DurableQueue, QueuedParcel
+from sensor.shell.store.errors import StoreError
 from sensor.shell.store.rows import StoreRow
 from sensor.shell.store.schema import SPECS_BY_TABLE, TableSpec, group_values
 
@@ -133,9 +134,14 @@ class StoreWriter:
         retry_max_s: float = 30.0,
     ) -> None:
         if batch_rows < 1 or flush_interval_s <= 0 or retry_max_s <= 0:
-            raise ValueError("batch_rows, flush_interval_s and retry_max_s must be positive")
+            raise StoreError(
+                "StoreWriter", "batch_rows, flush_interval_s and retry_max_s must be positive"
+            )
         if buffer_max_rows < batch_rows:
-            raise ValueError(f"buffer_max_rows ({buffer_max_rows}) < batch_rows ({batch_rows})")
+            raise StoreError(
+                "StoreWriter",
+                f"buffer_max_rows ({buffer_max_rows}) must be at least batch_rows ({batch_rows})",
+            )
         self.store = store
         self.queue = queue
         self.batch_rows = batch_rows

@@ -21,7 +21,7 @@ import pytest
 from sqlalchemy import event
 from sqlalchemy.engine import make_url
 
-from sensor.shell.store import SampleRow, Store, StoreWriter, WriterState
+from sensor.shell.store import SampleRow, Store, StoreError, StoreWriter, WriterState
 from sensor.shell.store.durable_queue import DurableQueue
 from sensor.shell.store.rows import epoch_us
 from tests.shell.store.conftest import T0, Backend, sample_rows, wait_until
@@ -115,6 +115,15 @@ def test_a_writer_closed_without_starting_still_writes_what_it_was_given(backend
     writer.put_many(sample_rows(10))
     assert writer.close()
     assert stored(backend) == expected(sample_rows(10))
+
+
+def test_impossible_writer_settings_are_refused(tmp_path):
+    with (
+        Store(f"sqlite:///{tmp_path / 'store.db'}") as store,
+        DurableQueue(tmp_path / "queue", 10) as queue,
+        pytest.raises(StoreError, match=r"^StoreWriter: buffer_max_rows \(5\) must be at least"),
+    ):
+        StoreWriter(store, queue, batch_rows=10, buffer_max_rows=5)
 
 
 def test_a_closed_writer_refuses_rows(backend, open_writer):
