@@ -13,6 +13,7 @@ owns its schema: the estimator never sees it.
 from __future__ import annotations
 
 import hashlib
+import re
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -310,13 +311,51 @@ class AlarmsConfig:
         )
 
 
+SQL_SCHEMA_NAME = re.compile(r"[a-z_][a-z0-9_]{0,62}")
+"""A PostgreSQL schema name the store accepts: plain, lower case, never quoted differently."""
+
+
 @dataclass(frozen=True)
 class StoreConfig:
+    """Where and how the store writes (``sensor.shell.store``)."""
+
     url: str = "sqlite:///sigmatrack.db"
+    schema: str | None = None
     batch_rows: int = field(default=1000, metadata=check(at_least(1)))
     flush_interval_s: float = field(default=1.0, metadata=check(positive))
+    buffer_max_rows: int = field(default=200_000, metadata=check(at_least(1)))
     queue_dir: Path | None = None
     queue_max_rows: int = field(default=5_000_000, metadata=check(at_least(1)))
+    retry_max_s: float = field(default=30.0, metadata=check(positive))
+
+    def __post_init__(self) -> None:
+        # Checked without SQLAlchemy (slow to import); sensor.shell.store parses it in full.
+        scheme, sep, rest = self.url.partition("://")
+        backend = scheme.partition("+")[0]
+        if not sep or backend not in ("sqlite", "postgresql"):
+            raise Invalid(
+                "url",
+                f"must be sqlite:///FILE or postgresql+psycopg://USER@HOST:PORT/DATABASE; "
+                f"got {self.url!r}",
+            )
+        credentials = rest.rpartition("@")[0]
+        if ":" in credentials:
+            raise Invalid(
+                "url",
+                "secrets do not belong in the site file: leave the password out of the URL "
+                "and give it to libpq as PGPASSWORD (environment) or in PGPASSFILE "
+                "(a file readable only by the service account)",
+            )
+        if self.schema is not None:
+            if backend != "postgresql":
+                raise Invalid("schema", "only for PostgreSQL")
+            if not SQL_SCHEMA_NAME.fullmatch(self.schema):
+                raise Invalid("schema", f"must be a plain lower-case SQL name; got {self.schema!r}")
+        if self.buffer_max_rows < self.batch_rows:
+            raise Invalid(
+                "buffer_max_rows",
+                f"must be at least batch_rows ({self.batch_rows}); got {self.buffer_max_rows}",
+            )
 
 
 @dataclass(frozen=True)
