@@ -132,7 +132,7 @@ class FilterTuning:
     conc_process_std: float = 2e-6
     moment_process_std: float = 1e-8
     growth_scale_random_walk_std: float = 1e-4
-    bias_random_walk_std: float = 1e-6
+    bias_random_walk_std: float = 3e-6
     growth_rel_std: float = 0.3
     nucleation_rel_std: float = 0.5
     kinetics_error_time_s: float = 60.0

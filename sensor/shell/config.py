@@ -163,7 +163,7 @@ class FilterConfig:
     temp_process_std_k_per_sqrt_s: float = field(default=2e-3, metadata=check(positive))
     conc_process_std_per_sqrt_s: float = field(default=2e-6, metadata=check(positive))
     moment_process_std_per_sqrt_s: float = field(default=1e-8, metadata=check(positive))
-    bias_random_walk_std_per_sqrt_s: float = field(default=1e-6, metadata=check(non_negative))
+    bias_random_walk_std_per_sqrt_s: float = field(default=3e-6, metadata=check(non_negative))
     growth_scale_random_walk_std_per_sqrt_s: float = field(
         default=1e-4, metadata=check(non_negative)
     )
