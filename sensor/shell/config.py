@@ -60,9 +60,12 @@ SIGNALS = (
     "permissive",
     "remote_setpoint",
     "heartbeat",
+    "setpoint",
 )
 """The signals a unit's ``tags`` table may name. ``temp``, ``jacket_temp`` and ``conc`` are
-required; the rest are needed for batch tracking and for writing to the DCS."""
+required; the rest are needed for batch tracking and for writing to the DCS. ``setpoint`` is the
+reactor-temperature setpoint the DCS's loop is using now (the guard counts its rate limits from
+it)."""
 
 REQUIRED_SIGNALS = ("temp", "jacket_temp", "conc")
 WRITE_SIGNALS = ("permissive", "remote_setpoint", "heartbeat")
@@ -358,11 +361,51 @@ class StoreConfig:
             )
 
 
+SecurityMode = Literal["none", "sign", "sign-and-encrypt"]
+"""OPC UA message security modes (Part 4, MessageSecurityMode), as site files name them."""
+
+APPLICATION_URI = re.compile(r"urn:[^\s]+")
+"""An OPC UA ApplicationUri as sigmatrack accepts it: a URN without spaces."""
+
+
 @dataclass(frozen=True)
 class OpcUaServerConfig:
+    """sigmatrack's own OPC UA server (``sensor.shell.opcua.advisor_server``).
+
+    It uses the application instance certificate of ``[opcua]`` (``certificate``,
+    ``private_key``); ``trust_dir`` holds the certificates of the clients it trusts.
+    """
+
     endpoint: str = "opc.tcp://127.0.0.1:4841/sigmatrack"
     namespace_uri: str = "urn:sigmatrack:advisor"
     allow_anonymous_read: bool = True
+    security_modes: tuple[SecurityMode, ...] = ("none",)
+    trust_dir: Path | None = None
+    users_file: Path | None = None
+
+    def __post_init__(self) -> None:
+        if not self.security_modes:
+            raise Invalid("security_modes", "give at least one mode")
+        if len(set(self.security_modes)) != len(self.security_modes):
+            raise Invalid("security_modes", "a mode is listed twice")
+        secure = self.secure_modes
+        if secure and self.trust_dir is None:
+            raise Invalid("trust_dir", "needed with a security mode other than 'none'")
+        if self.users_file is not None and not secure:
+            raise Invalid(
+                "users_file",
+                "user names and passwords need a signed or encrypted endpoint (add 'sign' or "
+                "'sign-and-encrypt' to security_modes): a password never travels in clear",
+            )
+        if not self.allow_anonymous_read and self.users_file is None:
+            raise Invalid(
+                "allow_anonymous_read", "is false and there is no users_file: nobody could log in"
+            )
+
+    @property
+    def secure_modes(self) -> tuple[SecurityMode, ...]:
+        """The modes other than ``none``."""
+        return tuple(mode for mode in self.security_modes if mode != "none")
 
 
 @dataclass(frozen=True)
@@ -370,15 +413,22 @@ class OpcUaConfig:
     endpoint: str = "opc.tcp://127.0.0.1:4840/plant"
     node_id_format: str = "ns=2;s={tag}"
     security_policy: Literal["none", "Basic256Sha256"] = "none"
-    security_mode: Literal["none", "sign", "sign-and-encrypt"] = "none"
+    security_mode: SecurityMode = "none"
     certificate: Path | None = None
     private_key: Path | None = None
     trust_dir: Path | None = None
+    application_uri: str = "urn:sigmatrack:advisor"
     username: str | None = None
     password_env: str | None = None
     password_file: Path | None = None
     sampling_interval_ms: float = field(default=500.0, metadata=check(positive))
     publishing_interval_ms: float = field(default=100.0, metadata=check(positive))
+    monitored_queue_size: int = field(default=10, metadata=check(at_least(1)))
+    notification_queue_max: int = field(default=10_000, metadata=check(at_least(100)))
+    request_timeout_s: float = field(default=4.0, metadata=check(positive))
+    reconnect_initial_s: float = field(default=1.0, metadata=check(positive))
+    reconnect_max_s: float = field(default=30.0, metadata=check(positive))
+    future_tolerance_s: float = field(default=5.0, metadata=check(non_negative))
     write_to_dcs: bool = False
     server: OpcUaServerConfig = OpcUaServerConfig()
 
@@ -393,8 +443,32 @@ class OpcUaConfig:
             for key in ("certificate", "private_key", "trust_dir"):
                 if getattr(self, key) is None:
                     raise Invalid(key, f"needed with security_policy = {self.security_policy!r}")
+        if self.server.secure_modes:
+            for key in ("certificate", "private_key"):
+                if getattr(self, key) is None:
+                    raise Invalid(key, "needed by the server's security_modes (its certificate)")
         if self.password_env is not None and self.password_file is not None:
             raise Invalid("password_file", "give password_env or password_file, not both")
+        if (self.password_env is not None or self.password_file is not None) and (
+            self.username is None
+        ):
+            raise Invalid("username", "needed with password_env or password_file")
+        if self.username is not None and self.security_policy == "none":
+            raise Invalid(
+                "username",
+                "a user name and password need security_policy 'Basic256Sha256': a password "
+                "never travels in clear",
+            )
+        if not APPLICATION_URI.fullmatch(self.application_uri):
+            raise Invalid(
+                "application_uri", f"must be a URN without spaces; got {self.application_uri!r}"
+            )
+        if self.reconnect_max_s < self.reconnect_initial_s:
+            raise Invalid(
+                "reconnect_max_s",
+                f"must be at least reconnect_initial_s ({self.reconnect_initial_s}); got "
+                f"{self.reconnect_max_s}",
+            )
 
 
 @dataclass(frozen=True)
