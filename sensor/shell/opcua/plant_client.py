@@ -93,6 +93,8 @@ _log = logging.getLogger(__name__)
 
 POLL_S = 0.25
 """How often the supervisor looks at the link between notifications [s]."""
+LOST_CLOSE_S = 1.0
+"""Longest wait to close the session of a link already lost [s]."""
 PROBLEMS_KEPT = 1000
 """Problems kept per unit between two samples (the oldest dropped first, counted)."""
 DATA_CHANGE_FILTER = ua.DataChangeFilter(Trigger=ua.DataChangeTrigger.StatusValueTimestamp)
@@ -325,11 +327,11 @@ class PlantClient:
     def _set_status(self, state: ConnectionState, **changes: object) -> None:
         if state is not self._status.state:
             _log.info("plant link %s -> %s", self._status.state.value, state.value)
+        changes = {"next_attempt_s": None, **changes}
         self._status = dataclasses.replace(
             self._status,
             state=state,
             since_s=time.time(),
-            next_attempt_s=None,
             **changes,  # type: ignore[arg-type]
         )
         self._changed.set()
@@ -341,9 +343,11 @@ class PlantClient:
         failures = 0
         while not self._stopping.is_set():
             self._set_status(ConnectionState.CONNECTING, failures=failures)
-            established, reason = await self._session()
+            client = Client(self.config.endpoint, timeout=self.config.request_timeout_s)
+            established, reason = await self._session(client)
             self._fail_pending(reason)
             if self._stopping.is_set():
+                await self._discard(client)
                 break
             if established:
                 failures, delay = 0, self.config.reconnect_initial_s
@@ -355,14 +359,14 @@ class PlantClient:
             _log.warning(
                 "plant link to %s: %s; next attempt in %.1f s", self.config.endpoint, reason, delay
             )
+            await self._discard(client)
             with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(self._stopping.wait(), timeout=delay)
+                await asyncio.wait_for(self._stopping.wait(), timeout=max(0.0, due - time.time()))
             delay = min(2.0 * delay, self.config.reconnect_max_s)
 
-    async def _session(self) -> tuple[bool, str]:
+    async def _session(self, client: Client) -> tuple[bool, str]:
         """One connection: connect, subscribe, consume until it ends. Returns whether it was
         established and why it ended."""
-        client = Client(self.config.endpoint, timeout=self.config.request_timeout_s)
         established = False
         try:
             await secure_client(client, self.config, self._password)
@@ -386,7 +390,6 @@ class PlantClient:
             reason = f"unexpected error {_error_text(error)}"
         finally:
             self._client = None
-            await self._discard(client)
         return established, reason
 
     async def _subscribe(self, client: Client) -> Subscription:
@@ -464,16 +467,17 @@ class PlantClient:
         return "stopped"
 
     async def _discard(self, client: Client) -> None:
-        """Close an asyncua client: gracefully while its link stands, otherwise by dropping the
-        socket first (so nothing waits on a dead link) and then its session and tasks."""
-        timeout = self.config.request_timeout_s
+        """Close an asyncua client: gracefully while its link stands; otherwise abort its socket
+        first (a dead link must not hold anything up), then end its session and its tasks."""
         try:
             if client.state is UaClientState.CONNECTED:
-                await asyncio.wait_for(client.disconnect(), timeout)
+                await asyncio.wait_for(client.disconnect(), self.config.request_timeout_s)
                 return
-            client.disconnect_socket()
+            protocol = client.uaclient.protocol
+            if protocol is not None and protocol.transport is not None:
+                protocol.transport.abort()
             with contextlib.suppress(OSError, TimeoutError, ua.UaError):
-                await asyncio.wait_for(client.close_session(), timeout)
+                await asyncio.wait_for(client.close_session(), LOST_CLOSE_S)
         except (OSError, TimeoutError, ua.UaError) as error:
             _log.info("plant link: closing the session: %s", _error_text(error))
 
