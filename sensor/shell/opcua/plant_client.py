@@ -71,7 +71,7 @@ from sensor.errors import SigmatrackError
 from sensor.samples import Reading, Sample, Severity, severity
 from sensor.shell.config import SiteConfig
 from sensor.shell.opcua.credentials import opcua_password
-from sensor.shell.opcua.security import check_identity, secure_client
+from sensor.shell.opcua.security import check_identity, secure_client, trust_store
 from sensor.shell.opcua.tags import (
     BAD_COMMUNICATION,
     BAD_TYPE,
@@ -298,10 +298,13 @@ class PlantClient:
         Raises
         ------
         SecurityFileError
-            If sigmatrack's certificate or key cannot be used (a problem that no retry fixes).
+            If sigmatrack's certificate, its key or the trust folder cannot be used (a problem
+            that no retry fixes).
         """
         if self.config.security_policy != "none":
+            assert self.config.trust_dir is not None
             check_identity(self.config)
+            await trust_store(self.config.trust_dir)
         if self._supervisor is None:
             self._supervisor = asyncio.create_task(self._supervise(), name="plant-client")
 

@@ -202,10 +202,14 @@ async def trust_store(directory: Path) -> TrustStore:
     Raises
     ------
     SecurityFileError
-        If the folder does not exist.
+        If the folder does not exist, holds no certificate, or holds a file that is not one.
     """
     if not directory.is_dir():
         raise SecurityFileError(directory, "the trust folder does not exist")
+    if not any(path.suffix.lower() in (".der", ".pem") for path in directory.iterdir()):
+        raise SecurityFileError(
+            directory, "the trust folder holds no certificate (*.der, *.pem): no peer is trusted"
+        )
     store = TrustStore([directory], [])
     try:
         await store.load()
