@@ -132,7 +132,8 @@ def create_application_certificate(
     return certificate
 
 
-def _load_certificate(path: Path) -> x509.Certificate:
+def load_certificate(path: Path) -> x509.Certificate:
+    """A certificate file (DER or PEM)."""
     try:
         data = path.read_bytes()
     except OSError as error:
@@ -158,7 +159,7 @@ def check_identity(config: OpcUaConfig, now: datetime | None = None) -> x509.Cer
     """
     assert config.certificate is not None
     assert config.private_key is not None
-    certificate = _load_certificate(config.certificate)
+    certificate = load_certificate(config.certificate)
     check_private_file(config.private_key, "the private key")
     try:
         key = serialization.load_pem_private_key(config.private_key.read_bytes(), password=None)
