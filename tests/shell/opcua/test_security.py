@@ -11,17 +11,14 @@ import os
 from datetime import UTC, datetime, timedelta
 
 import pytest
-from asyncua import Client, ua
-from asyncua.crypto.security_policies import SecurityPolicyBasic256Sha256
+from asyncua import ua
 from cryptography import x509
 from cryptography.x509.oid import ExtendedKeyUsageOID
 
-from controller.alarm_set import crystallizer_alarm_engine, crystallizer_alarms
-from sensor.shell.opcua.advisor_server import AdvisorServer, UnitOutputs
+from sensor.shell.opcua.advisor_server import AdvisorServer
 from sensor.shell.opcua.errors import SecurityFileError
 from sensor.shell.opcua.plant_client import ConnectionState, PlantClient
 from sensor.shell.opcua.security import check_identity, create_application_certificate
-from sensor.shell.opcua.users import UserRecord, hash_password, write_users
 from tests.shell.opcua.conftest import (
     ADVISOR_URI,
     PEER_URI,
@@ -29,13 +26,21 @@ from tests.shell.opcua.conftest import (
     run,
     wait_until,
     with_opcua,
-    with_server,
+)
+from tests.shell.opcua.desk import (
+    ALARM,
+    ENCRYPT,
+    OPERATOR,
+    SIGN,
+    UNIT,
+    VIEWER,
+    AlarmDesk,
+    alarm_nodes,
+    client_of,
+    secure_site,
+    server_site,
 )
 from tests.shell.opcua.miniplant import MiniPlant, Security
-
-UNIT = "CR-301"
-OPERATOR, VIEWER = ("shift-a", "operator password 1"), ("eng-b", "viewer password 22")
-ALARM = "communication-lost"
 
 
 def _load(path):
@@ -66,18 +71,8 @@ def test_a_new_application_certificate(pki, tmp_path):
         )
 
 
-def _secure_site(demo_site, pki, **changes):
-    return with_opcua(
-        demo_site,
-        application_uri=ADVISOR_URI,
-        certificate=pki.advisor_cert,
-        private_key=pki.advisor_key,
-        **changes,
-    )
-
-
 def test_the_identity_is_checked_before_use(demo_site, pki, tmp_path):
-    site = _secure_site(demo_site, pki)
+    site = secure_site(demo_site, pki)
     assert check_identity(site.opcua) == _load(pki.advisor_cert)
     wrong_uri = dataclasses.replace(site.opcua, application_uri="urn:sigmatrack:elsewhere")
     with pytest.raises(SecurityFileError, match=r"does not name opcua\.application_uri"):
@@ -99,97 +94,18 @@ def test_the_identity_is_checked_before_use(demo_site, pki, tmp_path):
 # --- sigmatrack's own server --------------------------------------------------------------------
 
 
-class AlarmDesk:
-    """The alarm engine of one unit behind the server's methods (what the service will wire)."""
-
-    def __init__(self, site):
-        settings = site.alarms.settings(site.guard.heating_phases)
-        self.definitions = crystallizer_alarms(settings)
-        self.engine = crystallizer_alarm_engine(settings)
-        self.actions = []
-        self.time_s = 0.0
-
-    def raise_communication_lost(self):
-        events = []
-        for time_s in (0.0, 40.0):  # past the 30 s on-delay
-            readings = {d.name: float(d.name == ALARM) for d in self.definitions}
-            events += self.engine.update(time_s, "controlled-cooling", readings)
-        self.time_s = 40.0
-        return events
-
-    async def act(self, action):
-        self.actions.append(action)
-        self.time_s += 1.0
-        if action.action == "acknowledge":
-            return self.engine.acknowledge(action.alarm, self.time_s, action.comment)
-        if action.action == "shelve":
-            return self.engine.shelve(action.alarm, self.time_s, action.duration_s, action.comment)
-        return self.engine.unshelve(action.alarm, self.time_s, action.comment)
-
-    def outputs(self, events=()):
-        statuses = [self.engine.status(d.name) for d in self.definitions]
-        return UnitOutputs(time_s=1.0e9 + self.time_s, alarms=statuses, events=tuple(events))
-
-
-def _users_file(tmp_path):
-    file = tmp_path / "users"
-    write_users(
-        file,
-        [
-            UserRecord(OPERATOR[0], "operator", hash_password(OPERATOR[1], os.urandom(16))),
-            UserRecord(VIEWER[0], "viewer", hash_password(VIEWER[1], os.urandom(16))),
-        ],
-    )
-    return file
-
-
-def _server_site(demo_site, pki, tmp_path, **server_changes):
-    site = _secure_site(demo_site, pki)
-    return with_server(
-        site,
-        endpoint=loopback("sigmatrack"),
-        security_modes=("none", "sign", "sign-and-encrypt"),
-        trust_dir=pki.trusted_by_advisor,
-        users_file=_users_file(tmp_path),
-        **server_changes,
-    )
-
-
-async def _client(site, *, cert, key, mode, user=None, uri=PEER_URI):
-    client = Client(site.opcua.server.endpoint, timeout=5)
-    client.application_uri = uri
-    if mode is not None:
-        await client.set_security(SecurityPolicyBasic256Sha256, str(cert), str(key), mode=mode)
-    if user is not None:
-        client.set_user(user[0])
-        client.set_password(user[1])
-    return client
-
-
-def _alarm_nodes(client, server):
-    base = f"{UNIT}.alarms.{ALARM}"
-    alarm = client.get_node(ua.NodeId(base, server.namespace_index))
-    method = ua.NodeId(f"{base}.acknowledge", server.namespace_index)
-    state = client.get_node(ua.NodeId(f"{base}.state", server.namespace_index))
-    return alarm, method, state
-
-
-ENCRYPT = ua.MessageSecurityMode.SignAndEncrypt
-SIGN = ua.MessageSecurityMode.Sign
-
-
 def test_an_operator_acknowledges_over_an_encrypted_channel(demo_site, pki, tmp_path):
-    site = _server_site(demo_site, pki, tmp_path)
+    site = server_site(demo_site, pki, tmp_path)
     desk = AlarmDesk(site)
 
     async def exercise():
         async with AdvisorServer(site, desk.definitions, desk.act) as server:
             await server.publish(UNIT, desk.outputs(desk.raise_communication_lost()))
-            client = await _client(
+            client = await client_of(
                 site, cert=pki.peer_cert, key=pki.peer_key, mode=ENCRYPT, user=OPERATOR
             )
             async with client:
-                alarm, method, state = _alarm_nodes(client, server)
+                alarm, method, state = alarm_nodes(client, server)
                 before = await state.read_value()
                 event_type = await client.nodes.base_event_type.get_child(
                     f"{server.namespace_index}:AlarmEventType"
@@ -223,17 +139,17 @@ def test_an_operator_acknowledges_over_an_encrypted_channel(demo_site, pki, tmp_
 
 
 def test_sign_only_works_too(demo_site, pki, tmp_path):
-    site = _server_site(demo_site, pki, tmp_path)
+    site = server_site(demo_site, pki, tmp_path)
     desk = AlarmDesk(site)
 
     async def exercise():
         async with AdvisorServer(site, desk.definitions, desk.act) as server:
             await server.publish(UNIT, desk.outputs(desk.raise_communication_lost()))
-            client = await _client(
+            client = await client_of(
                 site, cert=pki.peer_cert, key=pki.peer_key, mode=SIGN, user=OPERATOR
             )
             async with client:
-                alarm, method, _state = _alarm_nodes(client, server)
+                alarm, method, _state = alarm_nodes(client, server)
                 await alarm.call_method(method, "")
                 return client.security_policy.Mode
 
@@ -254,7 +170,7 @@ def test_wrong_untrusted_unauthenticated_or_unauthorised_clients_are_refused(
     # One server for every case (each case is its own client): a wrong certificate, an
     # untrusted one, a wrong password are refused at connection; anonymous clients and viewers
     # may read but neither call an alarm method nor write a variable.
-    site = _server_site(demo_site, pki, tmp_path)
+    site = server_site(demo_site, pki, tmp_path)
     desk = AlarmDesk(site)
 
     async def refused_at_connect(who):
@@ -265,7 +181,7 @@ def test_wrong_untrusted_unauthenticated_or_unauthorised_clients_are_refused(
             uri = "urn:sigmatrack:test:someone-else"
         else:
             user = (OPERATOR[0], "not the password")
-        client = await _client(site, cert=cert, key=key, mode=ENCRYPT, user=user, uri=uri)
+        client = await client_of(site, cert=cert, key=key, mode=ENCRYPT, user=user, uri=uri)
         try:
             await client.connect()
         except ua.UaStatusCodeError as error:
@@ -275,14 +191,14 @@ def test_wrong_untrusted_unauthenticated_or_unauthorised_clients_are_refused(
 
     async def reads_only(server, who):
         if who == "anonymous":  # over the endpoint without security, as the site allows
-            client = await _client(site, cert=None, key=None, mode=None)
+            client = await client_of(site, cert=None, key=None, mode=None)
         else:
-            client = await _client(
+            client = await client_of(
                 site, cert=pki.peer_cert, key=pki.peer_key, mode=ENCRYPT, user=VIEWER
             )
         outcomes = []
         async with client:
-            alarm, method, state = _alarm_nodes(client, server)
+            alarm, method, state = alarm_nodes(client, server)
             outcomes.append(await state.read_value())
             for attempt in (
                 lambda: alarm.call_method(method, "let me"),
@@ -312,12 +228,12 @@ def test_wrong_untrusted_unauthenticated_or_unauthorised_clients_are_refused(
 
 
 def test_anonymous_sessions_refused_when_the_site_says_so(demo_site, pki, tmp_path):
-    site = _server_site(demo_site, pki, tmp_path, allow_anonymous_read=False)
+    site = server_site(demo_site, pki, tmp_path, allow_anonymous_read=False)
     desk = AlarmDesk(site)
 
     async def exercise():
         async with AdvisorServer(site, desk.definitions, desk.act):
-            client = await _client(site, cert=None, key=None, mode=None)
+            client = await client_of(site, cert=None, key=None, mode=None)
             with pytest.raises(ua.UaStatusCodeError, match="BadIdentityTokenRejected"):
                 await client.connect()
 
@@ -332,7 +248,7 @@ def _plant_security(pki, trusted_clients, password="plant password 333"):
 
 
 def _plant_client_site(demo_site, pki, endpoint, trust_dir):
-    return _secure_site(
+    return secure_site(
         demo_site,
         pki,
         endpoint=endpoint,
