@@ -462,17 +462,26 @@ def _sigma_panel(ax: Axes, view: BatchView, hours: FloatArray, sigma_high_fracti
     with np.errstate(invalid="ignore"):
         above = sigma > limit
     if np.any(above):
+        # a pale region (prints as pale grey) and a solid bar along the bottom (prints black)
         ax.fill_between(
             hours,
             0,
             1,
             where=above,
             transform=ax.get_xaxis_transform(),
-            facecolor="none",
-            edgecolor=style.VERMILLION,
-            hatch="xx",
+            color=style.VERMILLION,
+            alpha=0.12,
             linewidth=0,
-            label="above the limit",
+        )
+        ax.fill_between(
+            hours,
+            0,
+            0.035,
+            where=above,
+            transform=ax.get_xaxis_transform(),
+            color=style.VERMILLION,
+            linewidth=0,
+            label="above the limit (bar)",
         )
     if view.peak is not None:
         ax.plot(
@@ -491,7 +500,7 @@ def _sigma_panel(ax: Axes, view: BatchView, hours: FloatArray, sigma_high_fracti
         top = min(float(np.max(finite)), 2.0 * float(np.nanmax(np.abs(sigma))) + 0.05)
         ax.set_ylim(min(float(np.min(finite)), 0.0) - 0.02, top * 1.18 + 0.01)
     ax.set_ylabel("relative supersaturation σ [-]")
-    ax.legend(loc="upper right", ncols=2)
+    ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=3, borderaxespad=0.2)
 
 
 def _alarm_marks(ax: Axes, view: BatchView) -> None:
