@@ -277,74 +277,35 @@ def _draw_envelope(ax: Axes, envelope: Envelope, zone: MetastableZone) -> None:
 
 def _draw_single(ax: Axes, view: BatchView) -> None:
     points = view.analyzer
-    used = points.accepted & points.estimating
-    ax.plot(
-        points.temp_c[used],
-        points.conc[used],
-        linestyle="none",
-        marker="o",
-        markersize=2.2,
-        markerfacecolor="none",
-        markeredgecolor=style.GREY,
-        markeredgewidth=0.5,
-        label="analyzer readings (as read)",
-    )
-    idle = ~points.estimating
-    if np.any(idle):
-        ax.plot(
-            points.temp_c[idle],
-            points.conc[idle],
-            linestyle="none",
-            marker="+",
-            markersize=3.0,
-            color=style.SKY_BLUE,
-            markeredgewidth=0.6,
-            label="analyzer, filter not running (heating, dissolving)",
-        )
-    rejected = ~points.accepted & points.estimating
-    if np.any(rejected):
-        ax.plot(
-            points.temp_c[rejected],
-            points.conc[rejected],
-            linestyle="none",
-            marker="x",
-            markersize=4,
-            color=style.REDDISH_PURPLE,
-            markeredgewidth=0.9,
-            label="analyzer readings rejected",
-        )
+    for shown, look, label in (
+        (points.accepted & points.estimating, style.READINGS, "analyzer readings (as read)"),
+        (
+            ~points.estimating,
+            style.READINGS_NOT_ESTIMATING,
+            "analyzer, filter not running (heating, dissolving)",
+        ),
+        (
+            points.estimating & ~points.accepted,
+            style.READINGS_REJECTED,
+            "analyzer readings rejected",
+        ),
+    ):
+        if np.any(shown):
+            ax.plot(points.temp_c[shown], points.conc[shown], label=label, **look.kwargs())
     _draw_path(ax, view, style.ESTIMATE, f"estimated path, {CONFIDENCE:.0%} band")
-    if view.seed is not None:
-        ax.plot(
-            view.seed.temp_c,
-            view.seed.conc,
-            linestyle="none",
-            marker="D",
-            markersize=8,
-            markerfacecolor=style.BLUISH_GREEN,
-            markeredgecolor=style.BLACK,
-            label="seed point",
-        )
+    for point, look, label, text, offset in (
+        (view.seed, style.SEED_POINT, "seed point", "seed", (9, 7)),
+        (view.peak, style.PEAK_POINT, "peak sigma", "peak σ {:.4f}", (-10, -16)),
+    ):
+        if point is None:
+            continue
+        ax.plot(point.temp_c, point.conc, label=label, **look.kwargs())
         ax.annotate(
-            "seed", (view.seed.temp_c, view.seed.conc), xytext=(9, 7), textcoords="offset points"
-        )
-    if view.peak is not None:
-        ax.plot(
-            view.peak.temp_c,
-            view.peak.conc,
-            linestyle="none",
-            marker="*",
-            markersize=11,
-            markerfacecolor=style.YELLOW,
-            markeredgecolor=style.BLACK,
-            label="peak sigma",
-        )
-        ax.annotate(
-            f"peak σ {view.peak.sigma:.4f}",
-            (view.peak.temp_c, view.peak.conc),
-            xytext=(-10, -16),
+            text.format(point.sigma),
+            (point.temp_c, point.conc),
+            xytext=offset,
             textcoords="offset points",
-            ha="right",
+            ha="left" if offset[0] > 0 else "right",
         )
 
 
@@ -383,15 +344,7 @@ def _mark_excursions(ax: Axes, views: Sequence[BatchView], checks: Sequence[Enve
             labelled = True
         first = check.excursions[0]
         at = int(np.argmin(np.abs(view.time_s - first.start_s)))
-        ax.plot(
-            view.temp_c[at],
-            view.conc[at],
-            linestyle="none",
-            marker="X",
-            markersize=8,
-            markerfacecolor=style.VERMILLION,
-            markeredgecolor=style.BLACK,
-        )
+        ax.plot(view.temp_c[at], view.conc[at], **style.LEAVES_ENVELOPE.kwargs())
         ax.annotate(
             check.batch,
             (view.temp_c[at], view.conc[at]),
@@ -487,12 +440,8 @@ def _sigma_panel(ax: Axes, view: BatchView, hours: FloatArray, sigma_high_fracti
         ax.plot(
             view.peak.time_s / 3600.0,
             view.peak.sigma,
-            linestyle="none",
-            marker="*",
-            markersize=11,
-            markerfacecolor=style.YELLOW,
-            markeredgecolor=style.BLACK,
             label=f"peak {view.peak.sigma:.4f}",
+            **style.PEAK_POINT.kwargs(),
         )
     _alarm_marks(ax, view)
     finite = np.concatenate([sigma[np.isfinite(sigma)], limit[np.isfinite(limit)]])

@@ -60,6 +60,35 @@ SETPOINT = Line(REDDISH_PURPLE, "--", 1.4)
 ZERO = Line(GREY, "-", 0.6)
 ENVELOPE_EDGE = Line(BLACK, (0, (1, 1)), 0.8)
 
+
+@dataclass(frozen=True)
+class Marks:
+    """How points are drawn, without a line (matplotlib keywords)."""
+
+    marker: str
+    size: float
+    face: str
+    edge: str
+    edge_width: float = 1.0
+
+    def kwargs(self) -> dict[str, object]:
+        return {
+            "linestyle": "none",
+            "marker": self.marker,
+            "markersize": self.size,
+            "markerfacecolor": self.face,
+            "markeredgecolor": self.edge,
+            "markeredgewidth": self.edge_width,
+        }
+
+
+READINGS = Marks("o", 2.2, "none", GREY, 0.5)
+READINGS_NOT_ESTIMATING = Marks("+", 3.0, SKY_BLUE, SKY_BLUE, 0.6)
+READINGS_REJECTED = Marks("x", 4.0, REDDISH_PURPLE, REDDISH_PURPLE, 0.9)
+SEED_POINT = Marks("D", 8.0, BLUISH_GREEN, BLACK)
+PEAK_POINT = Marks("*", 11.0, YELLOW, BLACK)
+LEAVES_ENVELOPE = Marks("X", 8.0, VERMILLION, BLACK)
+
 BAND_ALPHA = 0.25
 """Opacity of the confidence bands (light enough to print as a pale grey)."""
 
