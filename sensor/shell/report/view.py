@@ -155,7 +155,7 @@ def keep_indices(values: FloatArray, max_points: int, always: tuple[int, ...] = 
     where a bucket has none), the first and last samples, and the indices in ``always``.
 
     >>> keep_indices(np.array([0.0, 5.0, 1.0, 2.0, -3.0, 0.5, 0.0, 0.1]), 4).tolist()
-    [0, 1, 4, 7]
+    [0, 1, 4, 5, 7]
     """
     count = len(values)
     if count <= max_points:
