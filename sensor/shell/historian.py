@@ -222,7 +222,7 @@ def read_historian_csv(
         phases.append(phase)
         batch_id = cell("batch_id") or batch_id
         batch_ids.append(batch_id)
-    values = _to_si(raw, site, unit)
+    values = plant_to_si(raw, site, unit)
     severities = np.vectorize(lambda c: int(severity(c)), otypes=[np.int8])(codes)
     return _split(
         setup, file, unit_index, lines, stamps, times, values, severities, present, phases,
@@ -230,7 +230,7 @@ def read_historian_csv(
     )  # fmt: skip
 
 
-def _to_si(raw: np.ndarray, site: SiteConfig, unit: UnitConfig) -> np.ndarray:
+def plant_to_si(raw: np.ndarray, site: SiteConfig, unit: UnitConfig) -> np.ndarray:
     """Temperatures °C -> K; the analyzer's unit -> kg/kg (a value the unit cannot hold, such as
     a negative concentration, becomes NaN: validation rejects it as not finite)."""
     values = raw.copy()

@@ -65,6 +65,7 @@ class BatchSummary:
     peak_sigma: float | None
     peak_sigma_timestamp: str | None
     time_above_limit_s: float
+    sigma_integral_s: float
     final_sigma: float | None
     final_yield: float | None
     final_yield_kg: float | None
@@ -112,6 +113,7 @@ def summarise(result: BatchResult, unit_id: str) -> BatchSummary:
             peak_sigma=_none_if_nan(est.sigma[peak]) if peak >= 0 else None,
             peak_sigma_timestamp=started_stamps[peak] if peak >= 0 else None,
             time_above_limit_s=float(np.sum(interval[above])),
+            sigma_integral_s=float(np.sum(interval * np.maximum(np.nan_to_num(est.sigma), 0.0))),
             final_sigma=_none_if_nan(est.sigma[-1]),
             final_yield=_none_if_nan(est.yield_fraction[-1]),
             final_yield_kg=_none_if_nan(est.yield_kg[-1]),
@@ -147,6 +149,7 @@ def failed_summary(
         peak_sigma=None,
         peak_sigma_timestamp=None,
         time_above_limit_s=0.0,
+        sigma_integral_s=0.0,
         final_sigma=None,
         final_yield=None,
         final_yield_kg=None,

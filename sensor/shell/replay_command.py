@@ -51,6 +51,11 @@ def register(commands: argparse._SubParsersAction) -> None:
         metavar="OUT.csv",
         help="write every sample's outputs to this CSV (one file, with a batch column)",
     )
+    parser.add_argument(
+        "--report",
+        metavar="DIR",
+        help="also write each batch's report (an HTML page, as sigmatrack report) into DIR",
+    )
     parser.add_argument("--json", action="store_true", help="print the summaries as JSON")
     parser.add_argument(
         "--unit", metavar="ID", help="the unit the files belong to (default: from their columns)"
@@ -113,11 +118,20 @@ def run_replay(args: argparse.Namespace) -> int:
     sink = None
     if args.estimates:
         stream, sink = write_estimates(Path(args.estimates))
+    collector = None
+    if args.report:
+        # Drawing needs matplotlib: imported only when reports are asked for.
+        from sensor.shell.report.build import ViewCollector, combine_sinks, write_reports
+
+        collector = ViewCollector(setups, replay.unit_ids)
+        sink = combine_sinks(sink, collector)
     try:
         summaries = replay.run(batches, sink=sink, progress=Progress())
     finally:
         if stream is not None:
             stream.close()
+    if collector is not None:
+        write_reports(Path(args.report), site, zone, collector.views(batches, summaries))
     for summary in summaries:
         if summary.error is not None:
             print(f"sigmatrack: error: batch {summary.batch}: {summary.error}", file=sys.stderr)
