@@ -542,6 +542,8 @@ class AdvisorServer:
         server = self._server
         if server is None:
             raise RuntimeError("the advisor server is not started")
+        if unit_id not in self.unit_ids:
+            raise KeyError(f"the advisor server does not serve unit {unit_id!r}")
         source = datetime.fromtimestamp(outputs.time_s, UTC)
         now = datetime.now(UTC)
         types = {path: vtype for path, vtype, _unit in VARIABLES}

@@ -245,3 +245,29 @@ def test_wrong_types_and_unknown_phases_are_reported_not_used(demo_site):
     assert kinds == ["unknown-phase", "wrong-type", "wrong-type"]
     assert any("phase value 42 is not in the unit's phase_values" in str(p) for p in first.problems)
     assert second.problems == ()  # reported once per value
+
+
+def test_the_store_buffer_is_bounded_and_counts_what_it_drops(demo_site):
+    endpoint = loopback()
+    site = with_opcua(demo_site, endpoint=endpoint, notification_queue_max=100)
+
+    async def exercise():
+        async with MiniPlant(site.unit[0], endpoint) as plant, PlantClient(site) as client:
+            await client.wait_for(ConnectionState.CONNECTED, 10.0)
+            await asyncio.sleep(0.5)  # the initial values
+            client.take_updates()
+            dropped = client.status.dropped_updates
+            start = datetime.now(UTC)
+            for k in range(150):
+                await plant.set("temp", 20.0 + 0.01 * k, start + timedelta(seconds=k))
+                await asyncio.sleep(0.01)
+            await wait_until(
+                lambda: client.status.dropped_updates - dropped >= 50, 10.0, "50 dropped"
+            )
+            return client.take_updates(), client.status.dropped_updates - dropped
+
+    updates, dropped = run(exercise())
+    assert len(updates) == 100
+    assert dropped == 50
+    # the oldest were dropped: the newest 100 are kept, in order
+    assert [u.value for u in updates] == pytest.approx([20.0 + 0.01 * k for k in range(50, 150)])
