@@ -95,6 +95,8 @@ POLL_S = 0.25
 """How often the supervisor looks at the link between notifications [s]."""
 LOST_CLOSE_S = 1.0
 """Longest wait to close the session of a link already lost [s]."""
+LOG_EVERY_S = 60.0
+"""A tag's problem of one kind is logged at most this often [s] (all reach the snapshots)."""
 PROBLEMS_KEPT = 1000
 """Problems kept per unit between two samples (the oldest dropped first, counted)."""
 DATA_CHANGE_FILTER = ua.DataChangeFilter(Trigger=ua.DataChangeTrigger.StatusValueTimestamp)
@@ -274,6 +276,7 @@ class PlantClient:
         self._heartbeat_sent: dict[str, int] = {}
         self._updates: deque[TagUpdate] = deque()
         self._problems: dict[str, deque[TagProblem]] = {unit_id: deque() for unit_id in ids}
+        self._logged: dict[tuple[str, str, str], tuple[float, int]] = {}
         self._status = ConnectionStatus(ConnectionState.STARTING, time.time())
         self._client: Client | None = None
         self._pending: set[asyncio.Task] = set()
@@ -494,9 +497,19 @@ class PlantClient:
     # --- values in ----------------------------------------------------------------------------
 
     def _keep(self, problem: TagProblem | None) -> None:
+        """Keep a problem for the unit's next snapshot, and log it (each kind of problem of a
+        tag at most once per :data:`LOG_EVERY_S`, with how many were not logged since)."""
         if problem is None:
             return
-        _log.warning("plant tag %s", problem)
+        key = (problem.unit_id, problem.signal, problem.kind)
+        now = time.monotonic()
+        last, quiet = self._logged.get(key, (-math.inf, 0))
+        if now - last >= LOG_EVERY_S:
+            more = f" ({quiet} more since the last report)" if quiet else ""
+            _log.warning("plant tag %s%s", problem, more)
+            self._logged[key] = (now, 0)
+        else:
+            self._logged[key] = (last, quiet + 1)
         kept = self._problems[problem.unit_id]
         if len(kept) >= PROBLEMS_KEPT:
             kept.popleft()
