@@ -548,6 +548,14 @@ class PlantClient:
         self._updates.clear()
         return updates
 
+    def latest(self, unit_id: str, signal: str) -> TagValue | None:
+        """The latest value a tag reported and sigmatrack accepted (value, StatusCode, source and
+        server timestamps, in plant units), whether or not it went into a sample; None before
+        the first. It is kept through an outage: look at :attr:`status` to know whether it is
+        current."""
+        track = self._units[unit_id].get(signal)
+        return None if track is None else track.latest
+
     def tag_counts(self) -> dict[tuple[str, str], dict[str, int]]:
         """Per ``(unit, signal)``, how often each kind of problem occurred."""
         return {(t.spec.unit_id, t.spec.signal): dict(t.counts) for t in self._tracks}

@@ -86,10 +86,11 @@ def test_values_statuses_and_timestamps_arrive_converted_once(demo_site, short_s
                 raw = await raw_conc.read_data_value(raise_on_bad_status=False)
             await asyncio.sleep(0.5)  # the last notification is on its way
             dcs = snapshot.dcs
+            latest = client.latest(UNIT, "conc")
         updates = client.take_updates()
-        return conc_times, seen_bad, temps, dcs, updates, raw
+        return conc_times, seen_bad, temps, dcs, updates, raw, latest
 
-    conc_times, seen_bad, temps, dcs, updates, raw = run(exercise())
+    conc_times, seen_bad, temps, dcs, updates, raw, latest = run(exercise())
     # each value reaches a sample once, in order: none repeated, none invented
     assert conc_times == sorted(set(conc_times))
     assert len(conc_times) >= 8  # an analyzer value every 10 s simulated
@@ -99,6 +100,9 @@ def test_values_statuses_and_timestamps_arrive_converted_once(demo_site, short_s
     for reading in temps:
         update = by_source[("temp", reading.source_time_s)]
         assert reading.value == pytest.approx(update.value + ZERO_CELSIUS_K, abs=1e-9)
+    assert latest.source_time_s == raw.SourceTimestamp.timestamp()
+    assert latest.server_time_s is not None
+    assert latest.status_code == raw.StatusCode.value
     last_conc = by_source[("conc", raw.SourceTimestamp.timestamp())]
     assert last_conc.value == raw.Value.Value
     assert last_conc.status_code == raw.StatusCode.value
