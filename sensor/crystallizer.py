@@ -37,8 +37,14 @@ with the jacket temperature :math:`T_j` a measured input, held between samples. 
 crystallisation is neglected (dilute systems; the temperature state's process noise covers it).
 Before seeding or nucleation every moment is zero and the model reduces to the solute mass balance
 (:math:`c` constant) and the heat balance. Seeding adds the seed's moments at once
-(:func:`seed_moments`). Dissolution (:math:`\sigma < 0`) shrinks crystals at :math:`k_d \sigma`;
-the moments equations stop being exact when crystals vanish (fines dissolving completely).
+(:func:`seed_moments`). Dissolution (:math:`\sigma < 0`) shrinks crystals at :math:`k_d \sigma`.
+The moments equations stop being exact when crystals vanish (fines dissolving completely): the
+lost crystals should leave :math:`\zeta_0`, which needs the number density at zero size that the
+moments do not carry. Left alone, :math:`\zeta_1 .. \zeta_3` then run on below zero (negative
+crystal mass feeding solute back, a state the filter's sigma points reach whenever it believes
+the solution more undersaturated than it is). So while dissolving, a moment at or below zero
+stops changing and feeds nothing to the next: dissolution ends where nothing is left to
+dissolve (to within one Euler sub-step).
 
 Discretisation: explicit Euler in sub-steps of at most ``max_step_s`` (first order; at the default
 1 s the error is orders of magnitude below the kinetics' own uncertainty, see
@@ -368,6 +374,12 @@ def rates_with(
     out[ZETA1] = gamma * x[ZETA0]
     out[ZETA2] = 2.0 * gamma * x[ZETA1]
     out[ZETA3] = 3.0 * gamma * x[ZETA2]
+    if not growing:  # dissolution ends where nothing is left (module docstring)
+        for k in range(ZETA1, ZETA3 + 1):
+            if x[k] > 0.0:
+                out[k] = (k - ZETA0) * gamma * max(x[k - 1], 0.0)
+            else:
+                out[k] = 0.0
     out[CONC] = -out[ZETA3]
 
 
@@ -425,9 +437,19 @@ def rates_jacobian(
     for k in range(1, 4):
         row = ZETA0 + k
         lower = x[row - 1]
+        if sigma <= 0.0:  # dissolving (rates_with): nothing below zero dissolves
+            if x[row] <= 0.0:
+                continue
+            if lower <= 0.0:
+                lower = 0.0
+                gamma_here = 0.0
+            else:
+                gamma_here = gamma
+        else:
+            gamma_here = gamma
         out[row, TEMP] = k * lower * dgrowth_dsigma * dsigma_dtemp * inv_l
         out[row, CONC] = k * lower * dgrowth_dsigma * dsigma_dconc * inv_l
-        out[row, row - 1] += k * gamma
+        out[row, row - 1] += k * gamma_here
         if has_scale:
             out[row, GROWTH_SCALE] = k * lower * dgrowth_dscale * inv_l
     for col in range(x.shape[0]):
