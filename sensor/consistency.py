@@ -16,6 +16,7 @@ References
 from __future__ import annotations
 
 from collections import deque
+from itertools import pairwise
 
 import numpy as np
 from scipy import stats
@@ -34,18 +35,36 @@ def nis_band(window: int, probability: float) -> tuple[float, float]:
     return float(stats.chi2.ppf(tail, window)), float(stats.chi2.ppf(1.0 - tail, window))
 
 
-def nis_state_codes(nis: FloatArray, window: int, probability: float) -> np.ndarray:
+def nis_state_codes(
+    nis: FloatArray, window: int, probability: float, resets: np.ndarray | None = None
+) -> np.ndarray:
     """The window state code after each entry of a NIS series (NaN: no update at that sample,
-    which leaves the window as it was).
+    which leaves the window as it was). ``resets`` (bool, the series' length) marks the samples
+    at which the window starts empty again, as the live filter's does when it is reset (a phase
+    in which the model does not hold); None: never.
 
     Examples
     --------
     >>> codes = nis_state_codes(np.array([1.0, np.nan, 1.0, 50.0]), 2, 0.95)
     >>> [NIS_STATES[c] for c in codes]
     ['filling', 'filling', 'ok', 'high']
+    >>> again = nis_state_codes(np.array([1.0, 1.0, 1.0]), 2, 0.95, np.array([0, 0, 1], bool))
+    >>> [NIS_STATES[c] for c in again]
+    ['filling', 'ok', 'filling']
     """
     nis = np.asarray(nis, dtype=float)
-    lo, hi = nis_band(window, probability)
+    band = nis_band(window, probability)
+    if resets is None:
+        return _codes(nis, window, band)
+    starts = np.concatenate([[0], np.flatnonzero(np.asarray(resets, dtype=bool)), [len(nis)]])
+    return np.concatenate([_codes(nis[lo:hi], window, band) for lo, hi in pairwise(starts)]).astype(
+        np.int64
+    )
+
+
+def _codes(nis: FloatArray, window: int, band: tuple[float, float]) -> np.ndarray:
+    """:func:`nis_state_codes` of one run of the filter."""
+    lo, hi = band
     present = ~np.isnan(nis)
     values = nis[present]
     sums = np.cumsum(values)

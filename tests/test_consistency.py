@@ -29,9 +29,9 @@ seed dissolves (the sigma points straddle the switch from dissolution to growth)
 Known limit, marked xfail (strict): in batches seeded supersaturated (``seeded_supersaturated``)
 the growth scale's NEES leaves the band late in the batch on the high side (60 to 86 % of the
 check times inside, on six generator seeds), and so, on four of those six seeds, does the
-bias NEES (35 to 87 %; it passes on this file's seed): growth rate and analyzer bias are told apart only
-through the shape of the desupersaturation, that split is weakly observable, and the UKF's
-Gaussian posterior becomes overconfident about it (README, "Known limits")"""
+bias NEES (35 to 87 %; it passes on this file's seed): growth rate and analyzer bias are told
+apart only through the shape of the desupersaturation, that split is weakly observable, and the
+UKF's Gaussian posterior becomes overconfident about it (README, "Known limits")"""
 
 from __future__ import annotations
 

@@ -134,7 +134,8 @@ def test_dissolution_ends_where_nothing_is_left(model):
     empty = _state(model, conc=0.08, zeta=(2e-4, 0.0, 0.0, 0.0))
     derivative = np.empty(model.layout.size)
     rates(empty, 315.0, model.params, model.table, derivative)
-    assert np.all(derivative[ZETA1 : ZETA3 + 1] == 0.0) and derivative[CONC] == 0.0
+    assert np.all(derivative[ZETA1 : ZETA3 + 1] == 0.0)
+    assert derivative[CONC] == 0.0
     jac = step_jacobian(empty, 1.0, 315.0, model.params, model.table)
     np.testing.assert_array_equal(
         jac[ZETA1 : ZETA3 + 1, :], np.eye(model.layout.size)[ZETA1 : ZETA3 + 1]

@@ -175,7 +175,9 @@ def outputs_of(setup: UnitSetup, batch: HistorianBatch, out: KernelOutput) -> Ba
         setup.solvent_mass_kg,
     )
     accepted_nis = np.where(out.reasons[:, 2] == Reason.ACCEPTED, out.conc_nis, np.nan)
-    nis_state = nis_state_codes(accepted_nis, setup.nis_window, setup.nis_probability)
+    # the live window starts empty whenever the filter is reset (started turns false)
+    resets = np.concatenate([[False], started[:-1] & ~started[1:]])
+    nis_state = nis_state_codes(accepted_nis, setup.nis_window, setup.nis_probability, resets)
     return BatchResult(batch, out, started, est, nis_state)
 
 
