@@ -37,14 +37,8 @@ with the jacket temperature :math:`T_j` a measured input, held between samples. 
 crystallisation is neglected (dilute systems; the temperature state's process noise covers it).
 Before seeding or nucleation every moment is zero and the model reduces to the solute mass balance
 (:math:`c` constant) and the heat balance. Seeding adds the seed's moments at once
-(:func:`seed_moments`). Dissolution (:math:`\sigma < 0`) shrinks crystals at :math:`k_d \sigma`.
-The moments equations stop being exact when crystals vanish (fines dissolving completely): the
-lost crystals should leave :math:`\zeta_0`, which needs the number density at zero size that the
-moments do not carry. Left alone, :math:`\zeta_1 .. \zeta_3` then run on below zero (negative
-crystal mass feeding solute back, a state the filter's sigma points reach whenever it believes
-the solution more undersaturated than it is). So while dissolving, a moment at or below zero
-stops changing and feeds nothing to the next: dissolution ends where nothing is left to
-dissolve (to within one Euler sub-step).
+(:func:`seed_moments`). Dissolution (:math:`\sigma < 0`) shrinks crystals at :math:`k_d \sigma`;
+the moments equations stop being exact when crystals vanish (fines dissolving completely).
 
 Discretisation: explicit Euler in sub-steps of at most ``max_step_s`` (first order; at the default
 1 s the error is orders of magnitude below the kinetics' own uncertainty, see
@@ -356,7 +350,9 @@ def rates_with(
     params: FloatArray,
     out: FloatArray,
 ) -> None:
-    """:func:`rates` from the :func:`kinetics` of ``x``'s temperature and concentration."""
+    """:func:`rates` from the :func:`kinetics` of ``x``'s temperature and concentration, into
+    ``out[TEMP]`` .. ``out[ZETA3]``; the other entries (the growth scale's and the bias's, whose
+    rates are zero) are left as they are."""
     growth = growth_base
     if growing and params[P_HAS_GROWTH_SCALE] > 0.5:
         growth *= x[GROWTH_SCALE]
@@ -368,18 +364,11 @@ def rates_with(
         elif exponent != 0.0:
             birth *= max(x[ZETA3], 0.0) ** exponent
     gamma = growth / MOMENT_SIZE_SCALE_M
-    out[:] = 0.0
     out[TEMP] = params[P_HEAT_RATE] * (jacket_temp_k - x[TEMP])
     out[ZETA0] = params[P_NUCLEUS_MASS] * birth
     out[ZETA1] = gamma * x[ZETA0]
     out[ZETA2] = 2.0 * gamma * x[ZETA1]
     out[ZETA3] = 3.0 * gamma * x[ZETA2]
-    if not growing:  # dissolution ends where nothing is left (module docstring)
-        for k in range(ZETA1, ZETA3 + 1):
-            if x[k] > 0.0:
-                out[k] = (k - ZETA0) * gamma * max(x[k - 1], 0.0)
-            else:
-                out[k] = 0.0
     out[CONC] = -out[ZETA3]
 
 
@@ -389,6 +378,7 @@ def rates(
 ) -> None:
     """Write :math:`dx/dt` (the module's equations) into ``out``; ``x`` is one state vector."""
     _, growth, birth, growing = kinetics(x[TEMP], x[CONC], params, table)
+    out[:] = 0.0
     rates_with(x, jacket_temp_k, growth, birth, growing, params, out)
 
 
@@ -437,19 +427,9 @@ def rates_jacobian(
     for k in range(1, 4):
         row = ZETA0 + k
         lower = x[row - 1]
-        if sigma <= 0.0:  # dissolving (rates_with): nothing below zero dissolves
-            if x[row] <= 0.0:
-                continue
-            if lower <= 0.0:
-                lower = 0.0
-                gamma_here = 0.0
-            else:
-                gamma_here = gamma
-        else:
-            gamma_here = gamma
         out[row, TEMP] = k * lower * dgrowth_dsigma * dsigma_dtemp * inv_l
         out[row, CONC] = k * lower * dgrowth_dsigma * dsigma_dconc * inv_l
-        out[row, row - 1] += k * gamma_here
+        out[row, row - 1] += k * gamma
         if has_scale:
             out[row, GROWTH_SCALE] = k * lower * dgrowth_dscale * inv_l
     for col in range(x.shape[0]):
@@ -505,7 +485,7 @@ def step_points(
     seen in the first row or the last computed one (sigma points share them with the mean in all
     but the first two directions, so most rows reuse the mean's). Row 0 must not be skipped;
     its rates at the start (:func:`rates` of ``points[0]``) go to ``first_slope``."""
-    count, n = points.shape
+    count = points.shape[0]
     for i in range(count):
         if not skip[i]:
             out[i, :] = points[i]
@@ -513,6 +493,7 @@ def step_points(
         return
     steps = substeps(dt, params[P_MAX_STEP])
     h = dt / steps
+    slope[:] = 0.0  # rates_with leaves the zero rates of the growth scale and the bias alone
     for sub in range(steps):
         # two remembered (T, c): the first row's (the mean's) and the last computed
         first_temp, first_conc = out[0, TEMP], out[0, CONC]
@@ -535,7 +516,7 @@ def step_points(
             rates_with(row, jacket_temp_k, g, b, grows, params, slope)
             if sub == 0 and i == 0:
                 first_slope[:] = slope
-            for j in range(n):
+            for j in range(ZETA3 + 1):  # the growth scale and the bias do not move
                 row[j] += h * slope[j]
 
 

@@ -119,29 +119,6 @@ def test_step_jacobian_matches_finite_differences(model):
     np.testing.assert_allclose(jac, numeric, rtol=1e-4, atol=1e-9)
 
 
-def test_dissolution_ends_where_nothing_is_left(model):
-    # Physical limit (common practice): crystals cannot have negative length, area or mass.
-    # A small seed charge in a strongly undersaturated solution dissolves away within minutes;
-    # the moments stop at zero (to within one Euler sub-step's overshoot) and the solute gained
-    # is exactly the mass the crystals had.
-    x = _state(model, conc=0.08, zeta=(2e-4, 1e-4, 6e-5, 4e-5))
-    after = step(x, 3600.0, 315.0, model.params, model.table)
-    assert np.all(after[ZETA1 : ZETA3 + 1] >= -1e-3 * x[ZETA1 : ZETA3 + 1])
-    assert abs(after[ZETA3]) < 1e-3 * x[ZETA3]
-    dissolved = x[ZETA3] - after[ZETA3]
-    assert after[CONC] - x[CONC] == pytest.approx(dissolved, rel=1e-12)
-    # a moment at zero keeps a zero rate (and a zero Jacobian row) while dissolving
-    empty = _state(model, conc=0.08, zeta=(2e-4, 0.0, 0.0, 0.0))
-    derivative = np.empty(model.layout.size)
-    rates(empty, 315.0, model.params, model.table, derivative)
-    assert np.all(derivative[ZETA1 : ZETA3 + 1] == 0.0)
-    assert derivative[CONC] == 0.0
-    jac = step_jacobian(empty, 1.0, 315.0, model.params, model.table)
-    np.testing.assert_array_equal(
-        jac[ZETA1 : ZETA3 + 1, :], np.eye(model.layout.size)[ZETA1 : ZETA3 + 1]
-    )
-
-
 def test_seed_moments_of_a_normal_distribution():
     # Raw moments of N(mean, s^2): E[L^2] = mean^2 + s^2, E[L^3] = mean^3 + 3 mean s^2.
     mean, s = 60e-6, 15e-6
