@@ -16,10 +16,12 @@ kind           what the instrument does                                    in th
 ``drift``      its calibration offset grows at ``rate_per_h`` (kg/kg       a slow offset,
                solvent per hour for ``conc``, K per hour for temperatures)  ``Good``
                and keeps what it gained after the fault ends
+``nan``        reports not-a-number with quality ``Good`` (an analyzer     ``nan``, ``Good``
+               whose calibration model could not predict)
 =============  ==========================================================  =====================
 
-When faults overlap on one signal, ``dropout`` wins over ``bad``, ``bad`` over ``frozen``, and
-``frozen`` over the rest.
+When faults overlap on one signal, ``dropout`` wins over ``bad``, ``bad`` over ``nan``, ``nan``
+over ``frozen``, and ``frozen`` over the rest.
 
 On the command line (``sigmatrack simulate --faults SPEC``) faults are written
 
@@ -44,8 +46,16 @@ from typing import Literal
 from sensor.shell.tomlschema import Invalid, check, non_negative, positive
 from simulators.errors import SimulatorError
 
-FaultKind = Literal["spikes", "dropout", "frozen", "bad", "uncertain", "drift"]
-FAULT_KINDS: tuple[str, ...] = ("spikes", "dropout", "frozen", "bad", "uncertain", "drift")
+FaultKind = Literal["spikes", "dropout", "frozen", "bad", "uncertain", "drift", "nan"]
+FAULT_KINDS: tuple[str, ...] = (
+    "spikes",
+    "dropout",
+    "frozen",
+    "bad",
+    "uncertain",
+    "drift",
+    "nan",
+)
 FaultSignal = Literal["temp", "jacket_temp", "conc"]
 FAULT_SIGNALS: tuple[str, ...] = ("temp", "jacket_temp", "conc")
 

@@ -102,6 +102,8 @@ class Channel:
         kinds = self.faults.kinds_at(time_s) if self.faults.faults else frozenset()
         if "dropout" in kinds:
             return None
+        if "nan" in kinds and "bad" not in kinds:
+            return Reading(math.nan, GOOD)
         if "frozen" in kinds and "bad" not in kinds and self.last is not None:
             return self.last
         value = raw

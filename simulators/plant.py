@@ -19,6 +19,7 @@ seconds since the start of the batch; :meth:`~PlantSimulation.timestamp` maps it
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from datetime import datetime, timedelta
@@ -427,7 +428,9 @@ class PlantSimulation:
             time_s, dt, crystallizer.jacket_k - ZERO_CELSIUS_K
         )
         conc = self.analyzer.step(self.step_index, crystallizer.conc)
-        usable = temp is not None and not temp.status.startswith("Bad")
+        usable = (  # the DCS's own check: a Bad or not-a-number reading is not used
+            temp is not None and not temp.status.startswith("Bad") and math.isfinite(temp.value)
+        )
         measured_k = float(temp.value) + ZERO_CELSIUS_K if usable else None  # type: ignore[union-attr,arg-type]
         decided = self.recipe.update(time_s, dt, measured_k, self.inputs)
         if decided.charge_seed and self._seed_counts is not None:

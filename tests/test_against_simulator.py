@@ -123,6 +123,7 @@ FAULTS = {
     "uncertain/temp@16200s+120s": ("temp", 16200, 16320, {Reason.UNCERTAIN}),
     "frozen/temp@18000s+600s": ("temp", 18000, 18600, {Reason.FROZEN}),
     "dropout@21600s+300s": ("conc", 21600, 21900, {Reason.MISSING}),
+    "nan@23400s+300s": ("conc", 23400, 23700, {Reason.NOT_FINITE}),
     # the DCS's temperature loop acts on the drifting reading, so the fault is short
     # (and the replay below accepts reactor temperatures of 15 to 100 °C only, so the drift,
     # 25 K down from about 34 °C, also leaves the range)

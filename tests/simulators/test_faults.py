@@ -65,7 +65,8 @@ def test_each_fault_shows_in_the_historian_as_a_real_one_would(demo_site, short_
         demo_site,
         short_settings,
         "dropout@600s+300s; frozen@1200s+300s; bad@1800s+300s; uncertain@2400s+300s;"
-        "spikes@3000s+600s:every_s=10,size_std=20; frozen/temp@600s+120s; dropout/temp@900s+60s",
+        "spikes@3000s+600s:every_s=10,size_std=20; frozen/temp@600s+120s; dropout/temp@900s+60s;"
+        "nan@3600s+60s",
         3700.0,
     )
     analyzer_times = [t for t, row in rows if row[CONC]]
@@ -97,6 +98,9 @@ def test_each_fault_shows_in_the_historian_as_a_real_one_would(demo_site, short_
     assert len(set(_between(rows, 600, 720, TEMP))) == 1
     assert set(_between(rows, 900, 960, TEMP)) == {""}
     assert len(set(_between(rows, 960, 1020, TEMP))) > 5
+    # nan: not-a-number, flagged Good
+    assert set(v for v in _between(rows, 3600, 3660, CONC) if v) == {"NaN"}
+    assert set(v for v in _between(rows, 3600, 3660, CONC + ".quality") if v) == {"Good"}
     # outside every fault: Good
     assert set(v for v in _between(rows, 100, 590, CONC + ".quality") if v) == {"Good"}
 
