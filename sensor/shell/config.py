@@ -572,14 +572,14 @@ class LiveConfig:
             raise Invalid("host", "must name an address to listen on, e.g. 127.0.0.1")
         if (self.certificate is None) != (self.private_key is None):
             raise Invalid("certificate", "certificate and private_key go together (HTTPS)")
-        if self.users_file is not None and self.certificate is None:
-            if self.host not in LOOPBACK_HOSTS:
-                raise Invalid(
-                    "host",
-                    f"{self.host!r} is reachable from other machines and users_file lets people "
-                    "log in: give certificate and private_key (HTTPS) so that a password never "
-                    "travels in clear, or listen on 127.0.0.1",
-                )
+        in_clear = self.users_file is not None and self.certificate is None
+        if in_clear and self.host not in LOOPBACK_HOSTS:
+            raise Invalid(
+                "host",
+                f"{self.host!r} is reachable from other machines and users_file lets people "
+                "log in: give certificate and private_key (HTTPS) so that a password never "
+                "travels in clear, or listen on 127.0.0.1",
+            )
 
 
 @dataclass(frozen=True)

@@ -3,7 +3,8 @@
 const SETUP = JSON.parse(document.getElementById("setup").textContent);
 const P = SETUP.palette, FIELDS = SETUP.trend_fields;
 const F = Object.fromEntries(FIELDS.map((n, i) => [n, i]));
-const NS = "http://www.w3.org/2000/svg";
+const NS = "http://www.w3.org/2000/svg";  // a name, never fetched
+const DIAGRAM_REACH_K = 15;  // the phase diagram shows this far around the path [K]
 const state = { units: {}, help: {}, session: null, connected: false, lastData: null };
 
 function h(tag, attrs, ...kids) {
@@ -212,8 +213,11 @@ function diagramChart(id, u) {
   const path = { t: column(rows, "temp_c"), c: column(rows, "conc") };
   const cs = v["estimates.conc_std"];
   const nowLo = num(cs) ? v["estimates.conc"] - 2 * cs : null, nowHi = num(cs) ? v["estimates.conc"] + 2 * cs : null;
-  const ys = extent([d.c_sat_lo, d.c_sat_hi, d.c_limit, path.c, [nowLo, nowHi]], 0.04);
-  const xs = extent([d.temp_c], 0);
+  // Around the path and the live point (DIAGRAM_REACH_K either side), within the curves' range.
+  const full = extent([d.temp_c], 0), seen = extent([path.t, [v["estimates.temp_c"]]], 0);
+  const xs = seen ? [Math.max(full[0], seen[0] - DIAGRAM_REACH_K), Math.min(full[1], seen[1] + DIAGRAM_REACH_K)] : full;
+  const inside = (a) => a.map((c, i) => (d.temp_c[i] >= xs[0] && d.temp_c[i] <= xs[1] ? c : null));
+  const ys = extent([inside(d.c_sat_lo), inside(d.c_sat_hi), inside(d.c_limit), path.c, [nowLo, nowHi]], 0.04);
   return chart({ id: id + "-phase", label: id + ": phase diagram", width: 520, height: 430, x: xs, y: ys,
     xlabel: "temperature [°C]", ylabel: "dissolved solute c [kg/kg solvent]", ytick: (t) => t.toPrecision(3), series: [
       { kind: "band", xs: d.temp_c, lo: d.c_sat_lo, hi: d.c_sat_hi, color: P.band_grey, label: "solubility, 95 % band" },

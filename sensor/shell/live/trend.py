@@ -4,9 +4,10 @@ Time is cut into slices of ``window_s / (points // 2)`` seconds; of each slice t
 the sample with the lowest and the one with the highest sigma (both, in time order; the last
 sample where sigma is not a number in the whole slice), with the other values of those samples.
 The peaks of supersaturation, which matter most on a trend, so survive any decimation; the
-slices' other samples are dropped as the slice closes. The buffer holds at most ``points + 2``
-rows whatever the step rate (a ring: the oldest row goes first), the rows of the last
-``window_s`` seconds.
+slices' other samples are dropped as the slice closes. The window spans ``points // 2`` closed
+slices and the open one, so the buffer holds at most ``points`` closed rows (a ring: the oldest
+goes first) and three open ones (the open slice's lowest, highest and last), whatever the
+step rate: the rows of the last ``window_s`` seconds.
 
 Min-max decimation is common practice for process trends: it keeps every excursion visible at
 any zoom, where taking every n-th sample can miss a short peak.
@@ -54,7 +55,9 @@ class TrendBuffer:
             raise ValueError(f"points must be at least 4; got {points}")
         self.window_s = window_s
         self.slice_s = window_s / (points // 2)
-        self.capacity = points + 2
+        self.capacity = points
+        self.max_rows = points + 3
+        """The most rows :meth:`rows` gives."""
         self._ring = np.full((self.capacity, len(TREND_FIELDS)), np.nan)
         self._next = 0
         self._count = 0

@@ -98,7 +98,9 @@ def demo_scene(
     ``communication-lost`` alarm raises after its on-delay)."""
     site, _zone = demo_site_and_zone()
     setup = demo_setup()
-    batch = cooling_batch(setup, np.random.default_rng(seed), hours=hours, seed_at_s=300.0)
+    batch = cooling_batch(
+        setup, np.random.default_rng(seed), hours=hours, start_temp_c=51.0, seed_at_s=300.0
+    )
     sensor = SoftSensor(setup)
     guard = Guard(site.guard.limits(site.controller.update_interval_s))
     settings = site.alarms.settings(site.guard.heating_phases)
