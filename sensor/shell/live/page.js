@@ -396,7 +396,9 @@ async function act(event) {
   const body = { comment: box.querySelector("input").value };
   if (action === "shelve") body.duration_s = Number(box.querySelector("select").value);
   const [ok, data] = await post(`/alarms/${encodeURIComponent(unit)}/${encodeURIComponent(alarm)}/${action}`, body, state.session.csrf);
-  if (ok) box.querySelector("input").value = "";
+  // The table may have been drawn again meanwhile (the action's events came by the stream).
+  const current = section.querySelector(`input[name="${CSS.escape(alarm + ":comment")}"]`);
+  if (ok && current) current.value = "";
   section.querySelector(".message").textContent = ok
     ? `${alarm}: ${action} done by ${state.session.user}` : `${alarm}: ${action} refused: ${data.error}`;
   if (!ok && data.error && data.error.startsWith("log in")) { state.session = null; renderLogin(); }
