@@ -80,7 +80,7 @@ function bandData(xs, lo, hi, X, Y) {
 }
 // A chart: spec = {width, height, x: [lo, hi], y: [lo, hi], xlabel, ylabel, xtick, series}
 function chart(spec) {
-  const W = spec.width, H = spec.height, L = 58, R = 10, T = 10, B = 34;
+  const W = spec.width, H = spec.height, L = 58, R = 22, T = 10, B = 34;
   const svg = s("svg", { class: "chart", viewBox: `0 0 ${W} ${H}`, role: "img", "aria-label": spec.label });
   const X = (v) => L + (v - spec.x[0]) / (spec.x[1] - spec.x[0]) * (W - L - R);
   const Y = (v) => H - B - (v - spec.y[0]) / (spec.y[1] - spec.y[0]) * (H - T - B);
@@ -318,7 +318,8 @@ function onSnapshot(data) {
   state.help = data.alarm_help;
   for (const id of SETUP.units) {
     const d = data.units[id];
-    state.units[id] = { state: d.state, events: d.events, closed: d.trend, open: [], diagram: d.diagram, receivedAt: Date.now() };
+    state.units[id] = { state: d.state, events: d.events, closed: d.trend, open: [],
+      diagram: data.diagrams[d.diagram], receivedAt: Date.now() };
   }
   state.lastData = Date.now();
   renderAll();

@@ -3,7 +3,9 @@
 Routes (everything else: 404; a wrong method: 405; a body over 16 KiB: 413)::
 
     GET  /                         the page (one HTML document; nothing else to load)
-    GET  /events                   server-sent events: "snapshot" on connect, then "unit" per
+    GET  /events                   server-sent events: "snapshot" on connect (every unit's
+                                   state, events and trend, and the phase diagrams, each
+                                   diagram once however many units share it), then "unit" per
                                    publish and "events" after an operator's action
     GET  /state                    the snapshot as JSON (what "snapshot" carries)
     GET  /session                  who is logged in ({"user", "role", "csrf"}); 401 if nobody
@@ -23,10 +25,11 @@ the access log is off (it would log URLs).
 Every response forbids loading anything from anywhere but this server (Content-Security-Policy
 ``default-src 'none'``; the page's one script and style sheet allowed by their hashes).
 
-Server-sent events: each page has a queue of :data:`QUEUE_MAX` messages; a page that falls
-that far behind is disconnected (its browser reconnects at once and gets a fresh snapshot), so
-a slow page never holds up :meth:`LivePage.publish`. A comment line every
-:data:`KEEPALIVE_S` seconds keeps idle connections open.
+Server-sent events: each page has a queue of :data:`QUEUE_STEPS` messages per unit, sent in
+one write whenever it wakes; a page that falls that far behind is disconnected (its browser
+reconnects at once and gets a fresh snapshot), so a slow page never holds up
+:meth:`LivePage.publish`. A comment line every :data:`KEEPALIVE_S` seconds keeps idle
+connections open.
 """
 
 from __future__ import annotations
@@ -67,8 +70,9 @@ from sensor.units import ZERO_CELSIUS_K
 
 _log = logging.getLogger(__name__)
 
-QUEUE_MAX = 256
-"""Messages waiting for one page before it is disconnected (it then reconnects)."""
+QUEUE_STEPS = 8
+"""Steps of every unit that may wait for one page before it is disconnected (it then
+reconnects and gets a fresh snapshot): the queue holds ``QUEUE_STEPS`` messages per unit."""
 KEEPALIVE_S = 15.0
 """Seconds between keep-alive comments on an idle event stream."""
 RETRY_MS = 3000
@@ -89,17 +93,23 @@ LOGINS_AT_ONCE = 2
 
 @dataclass
 class _Unit:
-    diagram: ZoneCurves
     trend: TrendBuffer
     state: dict[str, JsonValue] | None = None
     events: deque[dict[str, JsonValue]] = field(default_factory=lambda: deque(maxlen=EVENTS_KEPT))
 
 
 class _Stream:
-    """One open event stream: its queue, closed with None."""
+    """One open event stream: its queue (of ``size`` messages), closed with None."""
 
-    def __init__(self) -> None:
-        self.queue: asyncio.Queue[str | None] = asyncio.Queue(QUEUE_MAX)
+    def __init__(self, size: int) -> None:
+        self.queue: asyncio.Queue[str | None] = asyncio.Queue(size)
+
+    def take_all(self) -> list[str | None]:
+        """Every message waiting now (sent in one write)."""
+        taken = []
+        while not self.queue.empty():
+            taken.append(self.queue.get_nowait())
+        return taken
 
     def send(self, message: str | None) -> bool:
         """Queue a message; False (and the stream told to close) if it is full."""
@@ -178,10 +188,18 @@ class LivePage:
         self.sessions = Sessions(config.session_minutes * 60.0)
         window_s = config.trend_hours * 3600.0
         self._units = {
-            unit_id: _Unit(curves, TrendBuffer(window_s, config.trend_points))
+            unit_id: _Unit(TrendBuffer(window_s, config.trend_points)) for unit_id in diagrams
+        }
+        # Units sharing one zone share one diagram: the snapshot carries each once.
+        keys: dict[int, str] = {}
+        self._diagram_keys = {
+            unit_id: keys.setdefault(id(curves), f"d{len(keys)}")
             for unit_id, curves in diagrams.items()
         }
+        by_key = {keys[id(curves)]: curves for curves in diagrams.values()}
+        self._diagrams: dict[str, JsonValue] = {k: diagram_json(c) for k, c in by_key.items()}
         self._alarms = {d.name: d for d in alarm_definitions}
+        self._queue_size = QUEUE_STEPS * len(self._units)
         self._help = alarm_help(alarm_definitions)
         self._streams: set[_Stream] = set()
         self._logins = asyncio.Semaphore(LOGINS_AT_ONCE)
@@ -300,7 +318,7 @@ class LivePage:
     def _broadcast(self, message: str) -> None:
         for stream in list(self._streams):
             if not stream.send(message):
-                _log.warning("a live page fell %d messages behind: disconnected", QUEUE_MAX)
+                _log.warning("a live page fell %d messages behind: disconnected", self._queue_size)
 
     def snapshot(self) -> dict[str, JsonValue]:
         """Everything the page shows now (the "snapshot" event and ``GET /state``)."""
@@ -310,9 +328,14 @@ class LivePage:
                 "state": unit.state,
                 "events": list(unit.events),
                 "trend": json_safe(unit.trend.rows()),
-                "diagram": diagram_json(unit.diagram),
+                "diagram": self._diagram_keys[unit_id],
             }
-        return {"units": units, "alarm_help": self._help, "trend_fields": list(TREND_FIELDS)}
+        return {
+            "units": units,
+            "diagrams": self._diagrams,
+            "alarm_help": self._help,
+            "trend_fields": list(TREND_FIELDS),
+        }
 
     # --- HTTP ---------------------------------------------------------------------------------
 
@@ -342,7 +365,7 @@ class LivePage:
         response = web.StreamResponse(
             headers={"Content-Type": "text/event-stream", "Cache-Control": "no-store"}
         )
-        stream = _Stream()
+        stream = _Stream(self._queue_size)
         self._streams.add(stream)
         try:
             await response.prepare(request)
@@ -351,13 +374,15 @@ class LivePage:
             )
             while True:
                 try:
-                    message = await asyncio.wait_for(stream.queue.get(), KEEPALIVE_S)
+                    first = await asyncio.wait_for(stream.queue.get(), KEEPALIVE_S)
                 except TimeoutError:
-                    message = ": keep-alive\n\n"
-                if message is None:
+                    first = ": keep-alive\n\n"
+                batch = [first, *stream.take_all()]
+                closing = None in batch
+                await response.write("".join(m for m in batch if m is not None).encode())
+                if closing:
                     break
-                await response.write(message.encode())
-        except (ConnectionResetError, asyncio.CancelledError):
+        except ConnectionError:  # the page went away; its browser may come back
             pass
         finally:
             self._streams.discard(stream)

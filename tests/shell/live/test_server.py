@@ -10,15 +10,17 @@ import hashlib
 import json
 import logging
 import re
+import ssl
 
 import aiohttp
 import pytest
 
 from sensor.shell.live.errors import LivePageError
-from sensor.shell.live.server import QUEUE_MAX, _Stream, sse
+from sensor.shell.live.server import _Stream, sse
 from sensor.shell.live.state import json_safe
 from sensor.shell.live.trend import TREND_FIELDS
 from sensor.shell.opcua.advisor_server import unit_values
+from sensor.shell.opcua.security import create_application_certificate
 from tests.shell.live.scene import ALARM, UNIT
 from tests.shell.opcua.conftest import run
 from tests.shell.opcua.desk import OPERATOR, VIEWER, users_file
@@ -96,7 +98,8 @@ def test_state_before_and_after_a_publish(scene):
     )
     assert after["trend_fields"] == list(TREND_FIELDS)
     assert [row[0] for row in unit["trend"]] == [first.time_s, last.time_s]
-    diagram = unit["diagram"]
+    assert list(after["diagrams"]) == [unit["diagram"]]
+    diagram = after["diagrams"][unit["diagram"]]
     assert len(diagram["temp_c"]) == len(diagram["c_sat"]) == len(diagram["c_limit"])
     assert diagram["rate_k_per_min"] == pytest.approx(
         scene.site.controller.target_zone_rate_k_per_min
@@ -142,14 +145,14 @@ def test_sse_format_and_a_slow_page_is_disconnected_not_waited_for():
         sse("unit", {"a": float("nan")})
 
     async def exercise():
-        stream = _Stream()
-        sent = [stream.send(f"m{i}") for i in range(QUEUE_MAX + 1)]
-        return sent, stream.queue.qsize(), stream.queue.get_nowait()
+        stream = _Stream(8)
+        sent = [stream.send(f"m{i}") for i in range(9)]
+        return sent, stream.take_all()
 
-    sent, size, first = asyncio.run(exercise())
-    assert all(sent[:QUEUE_MAX])
-    assert not sent[QUEUE_MAX]
-    assert (size, first) == (1, None)  # emptied and told to close: the browser reconnects
+    sent, left = asyncio.run(exercise())
+    assert all(sent[:8])
+    assert not sent[8]
+    assert left == [None]  # emptied and told to close: the browser reconnects
 
 
 def test_publish_refuses_an_unknown_unit_and_a_time_going_back(scene):
@@ -335,3 +338,24 @@ def test_stopping_closes_the_event_streams(scene):
             return rest
 
     assert run(exercise()) == b""
+
+
+def test_over_https_the_session_cookie_is_secure(scene, tmp_path):
+    der, key = tmp_path / "live.der", tmp_path / "live.key"
+    create_application_certificate(der, key, "urn:sigmatrack:live-test", ["127.0.0.1"], days=2)
+    pem = tmp_path / "live.pem"
+    pem.write_text(ssl.DER_cert_to_PEM_cert(der.read_bytes()))
+    page = scene.page(users_file=users_file(tmp_path), certificate=pem, private_key=key)
+    trust = ssl.create_default_context(cafile=str(pem))
+
+    async def exercise():
+        async with page, client() as http:
+            assert page.url.startswith("https://127.0.0.1:")
+            async with http.post(
+                page.url + "login", json={"user": OPERATOR[0], "password": OPERATOR[1]}, ssl=trust
+            ) as response:
+                return response.status, response.headers.getall("Set-Cookie")
+
+    status, (cookie,) = run(exercise())
+    assert status == 200
+    assert "Secure" in cookie
