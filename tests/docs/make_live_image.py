@@ -20,11 +20,10 @@ import sys
 import tempfile
 from pathlib import Path
 
-from PIL import Image
-
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
+from tests.docs.images import save_small_png  # noqa: E402
 from tests.shell.live.browser import CHROMIUM, Browser  # noqa: E402
 from tests.shell.live.scene import UNIT, demo_scene, users_file  # noqa: E402
 
@@ -52,9 +51,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as folder:
         shot = Path(folder) / "shot.png"
         asyncio.run(asyncio.wait_for(_shoot(shot, Path(folder)), 300.0))
-        with Image.open(shot) as image:
-            palette = image.convert("RGB").quantize(colors=256, method=Image.Quantize.FASTOCTREE)
-            palette.save(IMAGE, optimize=True)
+        save_small_png(shot, IMAGE)
     print(f"wrote {IMAGE.relative_to(REPO)}")
 
 

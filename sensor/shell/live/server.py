@@ -50,6 +50,7 @@ from controller.alarms import AlarmDefinition, AlarmEvent
 from controller.errors import ControllerError
 from sensor.metastable import MetastableZone
 from sensor.shell.config import LiveConfig, SiteConfig
+from sensor.shell.lifecycle import Started
 from sensor.shell.live.auth import COOKIE, Session, Sessions, csrf_ok
 from sensor.shell.live.errors import LivePageError
 from sensor.shell.live.page import PageSetup, page_response_parts
@@ -155,7 +156,7 @@ def site_diagrams(site: SiteConfig, zone: MetastableZone) -> dict[str, ZoneCurve
     return {unit.id: lines for unit in site.unit}
 
 
-class LivePage:
+class LivePage(Started):
     """The live trend page's server (module docstring); an async context manager.
 
     Parameters
@@ -232,13 +233,6 @@ class LivePage:
         host = self.config.host
         host = f"[{host}]" if ":" in host else host
         return f"{scheme}://{host}:{self._port}/"
-
-    async def __aenter__(self) -> LivePage:
-        await self.start()
-        return self
-
-    async def __aexit__(self, *exc: object) -> None:
-        await self.stop()
 
     async def start(self) -> None:
         """Listen on ``config.host:config.port``.
