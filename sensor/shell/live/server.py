@@ -125,8 +125,9 @@ class _Stream:
 
 
 def sse(kind: str, data: JsonValue, *, retry_ms: int | None = None) -> str:
-    """One server-sent event (WHATWG HTML Living Standard, "Server-sent events", 9.2): an
-    ``event:`` line, one ``data:`` line of JSON (which holds no newline), a blank line."""
+    """One server-sent event (WHATWG HTML Living Standard, "Server-sent events"; the section
+    number, 9.2, from memory): an optional ``retry:`` line, an ``event:`` line, one ``data:``
+    line of JSON (which holds no newline), a blank line."""
     head = f"retry: {retry_ms}\n" if retry_ms is not None else ""
     return f"{head}event: {kind}\ndata: {json.dumps(data, allow_nan=False)}\n\n"
 
@@ -464,9 +465,9 @@ class LivePage(Started):
             comment, duration_s = _action_arguments(body, action)
         except _BadRequest as error:
             return _error(400, str(error))
-        request_ = OperatorAction(unit_id, alarm, action, session.user, comment, duration_s)  # type: ignore[arg-type]
+        wanted = OperatorAction(unit_id, alarm, action, session.user, comment, duration_s)  # type: ignore[arg-type]
         try:
-            events: Sequence[AlarmEvent] = await self.operator_action(request_)
+            events: Sequence[AlarmEvent] = await self.operator_action(wanted)
         except ControllerError as error:
             _log.warning("live page: %s %s %s by %s refused: %s", unit_id, alarm, action,
                          session.user, error)  # fmt: skip

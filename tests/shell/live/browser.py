@@ -31,7 +31,7 @@ import aiohttp
 import pytest
 
 CHROMIUM = Path("/usr/bin/chromium")
-INSTALL_TIMEOUT_S = 900
+UPDATE_TIMEOUT_S, INSTALL_TIMEOUT_S = 300, 600
 FLAGS = (
     "--headless",
     "--no-sandbox",
@@ -61,10 +61,11 @@ def chromium_or_skip() -> Path:
         )
     env = {**os.environ, "DEBIAN_FRONTEND": "noninteractive"}
     try:
-        for command in ([apt, "update", "-qq"], [apt, "install", "-y", "-qq", "chromium"]):
-            subprocess.run(
-                command, check=True, capture_output=True, timeout=INSTALL_TIMEOUT_S, env=env
-            )
+        for command, timeout_s in (
+            ([apt, "update", "-qq"], UPDATE_TIMEOUT_S),
+            ([apt, "install", "-y", "-qq", "chromium"], INSTALL_TIMEOUT_S),
+        ):
+            subprocess.run(command, check=True, capture_output=True, timeout=timeout_s, env=env)
     except (subprocess.SubprocessError, OSError) as error:
         pytest.skip(
             f"needs Chromium at /usr/bin/chromium; apt-get install chromium failed: {error}"
