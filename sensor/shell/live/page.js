@@ -318,6 +318,7 @@ function onSnapshot(data) {
   state.help = data.alarm_help;
   for (const id of SETUP.units) {
     const d = data.units[id];
+    if (!d) continue;  // a server restarted with other units: this page shows the old list
     state.units[id] = { state: d.state, events: d.events, closed: d.trend, open: [],
       diagram: data.diagrams[d.diagram], receivedAt: Date.now() };
   }
