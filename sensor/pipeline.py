@@ -64,6 +64,8 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields
 from typing import Any, Literal
 
+import numpy as np
+
 from controller.alarm_set import AlarmInputs, AlarmSettings, alarm_readings, crystallizer_alarms
 from controller.alarms import AlarmEngine, AlarmEvent, AlarmStatus
 from controller.checkpoint import get_float, put_float
@@ -213,6 +215,7 @@ class AdvisorResult:
     events : the alarm events of this step
     health_good : the soft sensor's health, as the guard was told
     communication_lost : as the driver said
+    alarm_readings : what each alarm read at this step (``controller.alarm_set``)
     """
 
     proposal: Proposal | None
@@ -222,13 +225,15 @@ class AdvisorResult:
     events: tuple[AlarmEvent, ...]
     health_good: bool
     communication_lost: bool
+    alarm_readings: Mapping[str, float]
 
 
 @dataclass(frozen=True)
 class PipelineResult:
     """One step of a unit's pipeline; the fields of the advisor server's ``UnitOutputs``
     (``time_s``, ``step``, ``proposal``, ``decision``, ``alarms``, ``events``, ``health_good``,
-    ``communication_lost``) and ``proposed`` (the law ran at this step)."""
+    ``communication_lost``), ``proposed`` (the law ran at this step) and ``alarm_readings``
+    (what each alarm read)."""
 
     time_s: float
     step: StepResult
@@ -239,6 +244,7 @@ class PipelineResult:
     health_good: bool
     communication_lost: bool
     proposed: bool
+    alarm_readings: Mapping[str, float]
 
 
 class Advisor:
@@ -291,12 +297,16 @@ class Advisor:
             self._proposal, self._next_law_s = None, -math.inf
         elif t >= self._next_law_s:
             temp_k = view.temp_k if health else math.nan  # the law then says why it cannot
-            self._proposal = self.law.propose(
-                LawInputs(t, view.phase, temp_k, setpoint_k, view.conc, predictor())
-            )
+            # A very uncertain estimate can send a sigma point of the forecast off to
+            # overflow: the forecast is then inf or NaN, which the law treats as no room
+            # (hold) or no forecast (no proposal); numpy need not warn about it.
+            with np.errstate(over="ignore", invalid="ignore"):
+                self._proposal = self.law.propose(
+                    LawInputs(t, view.phase, temp_k, setpoint_k, view.conc, predictor())
+                )
             self._next_law_s = t + self.setup.law.interval_s
             proposed = True
-        proposal_k = math.nan if self._proposal is None else self._proposal.setpoint_k
+        proposal_k = math.nan if self._proposal is None else self._ramp_k(self._proposal, t)
         decision = self.guard.step(
             GuardInputs(
                 time_s=t,
@@ -342,7 +352,18 @@ class Advisor:
             events=events,
             health_good=health,
             communication_lost=dcs.communication_lost,
+            alarm_readings=readings,
         )
+
+    def _ramp_k(self, proposal: Proposal, time_s: float) -> float:
+        """The setpoint [K] a proposal asks for at ``time_s``: the law's rate from the update,
+        reaching its setpoint one interval later (the DCS's loop follows a ramp better than a
+        step per interval)."""
+        rate = proposal.cooling_rate_k_per_s
+        if not math.isfinite(rate):
+            return proposal.setpoint_k
+        left = max(0.0, self.setup.law.interval_s - (time_s - proposal.time_s))
+        return proposal.setpoint_k + rate * left
 
     def statuses(self) -> tuple[AlarmStatus, ...]:
         """Every alarm's status, in the order of the set."""
@@ -462,6 +483,7 @@ class UnitPipeline:
             health_good=advice.health_good,
             communication_lost=advice.communication_lost,
             proposed=advice.proposed,
+            alarm_readings=advice.alarm_readings,
         )
 
     def act(
