@@ -10,9 +10,10 @@ faults:
 - **process**, the recipe alone (no permissive): seeded at 56 °C, above the charge's
   saturation temperature (about 55 °C), so the seed dissolves, then cooled linearly in one hour
   (far faster than the zone allows);
-- **utility**, the advisor in control: the jacket cannot go below 35 °C (a brine supply
-  failure), so the reactor stops following the advisor's setpoint; after 3 h the operator takes
-  the permissive back.
+- **utility**, the advisor in control: the recipe seeds at 50 °C, so late that sigma passes
+  through the seed window and out of it before the seed goes in; the jacket cannot go below
+  35 °C (a brine supply failure), so the reactor stops following the advisor's setpoint; after
+  3 h the operator takes the permissive back.
 
 For every raised and cleared event the alarm's own readings show the condition held for the
 on-delay (off-delay) at every scan before it, and not for a scan longer (common practice for
@@ -79,11 +80,12 @@ def batches():
     settings = plant.settings
     brine = replace(settings.thermal, jacket_setpoint_range_c=(35.0, 95.0))
     utility = run_closed_loop(
-        replace(plant, settings=replace(settings, thermal=brine)).simulation(),
+        replace(plant, settings=replace(settings, thermal=brine)).simulation({"seed_temp_c": 50.0}),
         UnitPipeline(setup),
         site,
         permissive_until_s=3.0 * H,
-        keep_results=True,
+        max_steps=round(4.0 * H / SCAN_S),  # the reactor never reaches 10 °C: the batch
+        keep_results=True,  # would not end
     )
     return setup, {"instruments": instruments, "process": process, "utility": utility}
 

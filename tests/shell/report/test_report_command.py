@@ -31,6 +31,11 @@ def assert_numbers_are_the_summary(values: dict[str, list[str]], summary: dict) 
         assert values[key] == [repr(float(summary[key]))], key
     for reason, count in summary["rejected_by_reason"].items():
         assert values[f"rejected_by_reason.{reason}"] == [str(count)]
+    # alarms by type, from the advisor's shadow run: the summary's counts, and no others
+    raised = summary["alarms_raised"]
+    assert raised is not None
+    shown = {k.split(".", 1)[1]: v for k, v in values.items() if k.startswith("alarms_raised.")}
+    assert shown == {alarm: [str(n)] for alarm, n in raised.items()}
 
 
 @pytest.fixture(scope="module")
