@@ -11,7 +11,9 @@ linear ramp no higher in peak true sigma than the advisor's. It prints per batch
 the peak-sigma margin (1 - peak true sigma / the plant's metastable limit; target > 0), the
 advisor's seeding-to-final time over the linear ramp's (target <= 0.70) and over the oracle's
 (target <= 1.15), and the law's per-update cost with the predictive check on (median, target
-< 2 ms). With ``--check`` it exits 1 when any target is missed by any batch.
+< 2 ms), with, side by side on one estimate, the law's cost as a multiple of one bare forecast
+of its candidate ramps (the law's own work beyond the model). With ``--check`` it exits 1 when
+any target is missed by any batch.
 """
 
 from __future__ import annotations
@@ -25,13 +27,41 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from controller.law import LawInputs, ramp_paths_k
+from sensor.pipeline import DcsInputs, UnitPipeline
 from sensor.shell.sitesensor import pipeline_setup
 from tests.closedloop import compare
-from tests.synthetic import demo_site_and_zone
+from tests.synthetic import cooling_batch, demo_site_and_zone
 
 LINEAR_MAX = 0.70
 ORACLE_MAX = 1.15
 LAW_MEDIAN_MAX_S = 2e-3
+
+
+def law_against_one_forecast(setup, repeats: int = 200) -> tuple[float, float]:
+    """Median wall time [s] of one law update and of one bare forecast of the law's candidate
+    ramps,
+    timed alternately on the same estimate (a synthetic seeded batch, 30 min in)."""
+    pipeline = UnitPipeline(setup)
+    batch = cooling_batch(setup.sensor, np.random.default_rng(1), hours=0.5, seed_at_s=600.0)
+    for sample in batch.samples:
+        pipeline.step(sample, DcsInputs())
+    x, P = pipeline.sensor.filter.x, pipeline.sensor.filter.P
+    law = pipeline.advisor.law
+    bound = pipeline.forecast.bind(x, P)
+    times = law._times_s
+    rates = law._grid
+    paths, _ = ramp_paths_k(x[0], setup.limits.final_temp_k, rates, times)
+    inputs = LawInputs(0.0, "controlled-cooling", x[0], x[0], x[1], bound)
+    law_s, forecast_s = [], []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        law.propose(inputs)
+        law_s.append(time.perf_counter() - start)
+        start = time.perf_counter()
+        bound.predict_sigma(times, paths)
+        forecast_s.append(time.perf_counter() - start)
+    return float(np.median(law_s)), float(np.median(forecast_s))
 
 
 def main() -> int:
@@ -71,6 +101,12 @@ def main() -> int:
     print(
         f"law per update (predictive check on): median {1e3 * median_cost:.2f} ms, p90 "
         f"{1e3 * np.percentile(costs, 90):.2f} ms over {len(costs)} updates (target < 2 ms)"
+    )
+    law_s, forecast_s = law_against_one_forecast(setup)
+    print(
+        f"side by side on one estimate: law update {1e3 * law_s:.2f} ms = "
+        f"{law_s / forecast_s:.1f}x one bare forecast of its {setup.law.rate_candidates + 1} "
+        f"candidate ramps ({1e3 * forecast_s:.2f} ms)"
     )
     missed = (
         linear.max() > LINEAR_MAX
