@@ -25,12 +25,22 @@ def replay_json(files, capsys) -> dict[str, dict]:
     return {s["batch"]: s for s in json.loads(capsys.readouterr().out)}
 
 
-def assert_numbers_are_the_summary(values: dict[str, list[str]], summary: dict) -> None:
-    """Every key figure on the page carries the summary's number exactly."""
+def assert_numbers_are_the_summary(
+    values: dict[str, list[str]], summary: dict, shadow_alarms: bool = True
+) -> None:
+    """Every key figure on the page carries the summary's number exactly (and the alarm
+    counts, unless the page shows alarms recorded live rather than the shadow run's)."""
     for key in SUMMARY_KEYS:
         assert values[key] == [repr(float(summary[key]))], key
     for reason, count in summary["rejected_by_reason"].items():
         assert values[f"rejected_by_reason.{reason}"] == [str(count)]
+    if not shadow_alarms:
+        return
+    # alarms by type, from the advisor's shadow run: the summary's counts, and no others
+    raised = summary["alarms_raised"]
+    assert raised is not None
+    shown = {k.split(".", 1)[1]: v for k, v in values.items() if k.startswith("alarms_raised.")}
+    assert shown == {alarm: [str(n)] for alarm, n in raised.items()}
 
 
 @pytest.fixture(scope="module")
