@@ -278,6 +278,7 @@ class PlantClient:
         self._problems: dict[str, deque[TagProblem]] = {unit_id: deque() for unit_id in ids}
         self._logged: dict[tuple[str, str, str], tuple[float, int]] = {}
         self._status = ConnectionStatus(ConnectionState.STARTING, time.time())
+        self._newest_source_s: float | None = None
         self._client: Client | None = None
         self._pending: set[asyncio.Task] = set()
         self._lost_reason = ""
@@ -524,6 +525,8 @@ class PlantClient:
         self._keep(problem)
         if value is None:
             return
+        if self._newest_source_s is None or value.source_time_s > self._newest_source_s:
+            self._newest_source_s = value.source_time_s
         if len(self._updates) >= self.config.notification_queue_max:
             self._updates.popleft()
             self._status = dataclasses.replace(
@@ -541,6 +544,12 @@ class PlantClient:
                 else datetime.fromtimestamp(value.server_time_s, UTC),
             )
         )
+
+    @property
+    def newest_source_s(self) -> float | None:
+        """The newest source timestamp of any value accepted so far [s since the Unix epoch]
+        (a simulated plant's clock, :class:`~sensor.shell.service.clock.PlantClock`)."""
+        return self._newest_source_s
 
     def take_updates(self) -> list[TagUpdate]:
         """Every value accepted since the last call, oldest first (for the store)."""

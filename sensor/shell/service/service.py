@@ -1,0 +1,352 @@
+"""``sigmatrack run``'s engine: one process, many units, on a clock tick.
+
+::
+
+    PlantClient ──sample(unit, t)──> UnitPipeline.step ──> AdvisorServer.publish
+        │                                   │          └─> PlantClient.write_outputs
+        └─ take_updates() ─> samples        └─> estimates, proposals, alarm events ─> StoreWriter
+                                                             checkpoints (periodic) ─┘
+
+**Ticks.** Every unit is stepped once per ``service.tick_s``, the units spread evenly across
+the tick (unit ``i`` of ``n`` at ``i/n`` of it), so that their work, their publishes and
+their writes never pile up in one instant. A step's time is the clock's time when it runs
+(:mod:`~sensor.shell.service.clock`), never earlier than the unit's previous one. A unit that
+falls more than a tick behind (the machine stalled) skips the ticks it missed, counted in
+:attr:`ServiceStatus.late_ticks`; nothing is stepped twice.
+
+**The link to the plant.** While it is lost every sample says so (readings
+``BadCommunicationError``): the pipeline's guard falls back, nothing is written (the heartbeat
+stops with the writes, so the DCS's watchdog hands control back to its recipe), the proposal
+is withdrawn from sigmatrack's own server, and the communication alarm is raised. Timestamps
+that go backwards, repeat or lie in the future are refused by the plant client and counted
+here per kind (:attr:`ServiceStatus.tag_problems`).
+
+**The store** gets every accepted plant value (with its quality), every step's estimate, the
+guard's decision, every alarm event (operators' acknowledgements and shelving with their user
+name), the batches as the DCS names them, the audit trail of this start (site file, versions,
+fitted models) and each unit's checkpoint every ``service.checkpoint_interval_s``. The writer
+never blocks the tick (:class:`~sensor.shell.store.writer.StoreWriter`).
+
+**A restart** resumes each unit from its latest stored checkpoint, if the DCS still runs that
+batch (:mod:`~sensor.shell.service.units`). **Stopping** (:meth:`Service.run` returns when its
+``stop`` event is set) checkpoints every unit and flushes the store.
+
+sigmatrack advises only: the DCS keeps the temperature loop and the recipe, and the safety
+instrumented system keeps protection.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import dataclasses
+import hashlib
+import logging
+import math
+from collections import Counter
+from collections.abc import Awaitable, Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+
+from controller.alarm_set import crystallizer_alarms
+from controller.alarms import AlarmEvent
+from controller.errors import ControllerError
+from sensor.kalman import FilterError
+from sensor.pipeline import DcsInputs
+from sensor.shell.config import SiteConfig
+from sensor.shell.opcua.advisor_server import (
+    AdvisorServer,
+    OperatorAction,
+    UnitOutputs,
+    unit_outputs,
+)
+from sensor.shell.opcua.plant_client import ConnectionStatus, PlantClient, UnitSnapshot
+from sensor.shell.service.clock import Clock, PlantClock, WallClock
+from sensor.shell.service.records import alarm_event_rows, sample_row, step_rows
+from sensor.shell.service.units import UnitRunner
+from sensor.shell.sitemodels import fit_site_solubility, site_metastable_zone
+from sensor.shell.sitesensor import pipeline_setup
+from sensor.shell.store import (
+    Store,
+    StoreError,
+    StoreRow,
+    StoreWriter,
+    WriterStatus,
+    audit_rows,
+    read_latest_checkpoint,
+)
+from sensor.softsensor import SampleOrderError
+
+_log = logging.getLogger(__name__)
+
+IDLE_WAIT_S = 0.05
+"""Wall time to wait while the clock is not known yet (a simulated plant's first value) [s]."""
+CLOSE_TIMEOUT_S = 30.0
+"""Longest wait for the store to make every row durable when stopping [s]."""
+
+
+@dataclass(frozen=True)
+class UnitStep:
+    """What one step of one unit did, for the console view and the live page.
+
+    Attributes
+    ----------
+    unit_id : the unit
+    snapshot : what the plant client gave (sample, DCS signals, link, tag problems)
+    outputs : what was published
+    written : ``(signal, value)`` the DCS accepted at this step
+    batch_id : the batch the DCS runs
+    """
+
+    unit_id: str
+    snapshot: UnitSnapshot
+    outputs: UnitOutputs
+    written: tuple[tuple[str, float | int], ...]
+    batch_id: str | None
+
+
+StepListener = Callable[[UnitStep], Awaitable[None] | None]
+"""Called after every step (the console view, the live page); must not block."""
+
+
+@dataclass(frozen=True)
+class ServiceStatus:
+    """The service as it stands.
+
+    Attributes
+    ----------
+    steps : unit steps done since the start
+    late_ticks : ticks skipped because a unit fell more than a tick behind
+    resumed : units that resumed from a stored checkpoint
+    tag_problems : tag problems reported by the plant client, by kind
+    dropped_rows : rows the store's writer refused (its buffer was full)
+    link : the plant link
+    store : the writer
+    """
+
+    steps: int
+    late_ticks: int
+    resumed: tuple[str, ...]
+    tag_problems: Mapping[str, int]
+    dropped_rows: int
+    link: ConnectionStatus | None
+    store: WriterStatus | None
+
+
+def model_versions(site: SiteConfig) -> dict[str, str]:
+    """A digest of each fitted model the units run with, for the audit trail."""
+    fit = fit_site_solubility(site)
+    zone = site_metastable_zone(site, fit)
+
+    def digest(model: object) -> str:
+        return "sha256:" + hashlib.sha256(repr(model).encode()).hexdigest()[:16]
+
+    return {"solubility": digest(fit.curve), "metastable": digest(zone)}
+
+
+class Service:
+    """The live service for the units of a site file (module docstring).
+
+    Parameters
+    ----------
+    site : the site file
+    plant_clock_speed : follow a simulated plant's clock running this many times faster than
+        the wall clock (:class:`~sensor.shell.service.clock.PlantClock`); None: the wall clock
+    environ : where passwords named by the site file are looked up (default ``os.environ``)
+    listeners : called after every unit step (console view, live page)
+    """
+
+    def __init__(
+        self,
+        site: SiteConfig,
+        *,
+        plant_clock_speed: float | None = None,
+        environ: Mapping[str, str] | None = None,
+        listeners: Sequence[StepListener] = (),
+    ) -> None:
+        self.site = site
+        self.plant_clock_speed = plant_clock_speed
+        self.environ = environ
+        self.listeners = list(listeners)
+        fit = fit_site_solubility(site)
+        self.zone = site_metastable_zone(site, fit)
+        self.units = [
+            UnitRunner(
+                pipeline_setup(site, index, self.zone),
+                site.sha256,
+                site.service.checkpoint_interval_s,
+            )
+            for index in range(len(site.unit))
+        ]
+        self._by_id = {unit.unit_id: unit for unit in self.units}
+        self.plant: PlantClient | None = None
+        self.server: AdvisorServer | None = None
+        self.writer: StoreWriter | None = None
+        self._steps = 0
+        self._late = 0
+        self._problems: Counter[str] = Counter()
+        self._dropped = 0
+
+    # --- status -------------------------------------------------------------------------------
+
+    def status(self) -> ServiceStatus:
+        return ServiceStatus(
+            steps=self._steps,
+            late_ticks=self._late,
+            resumed=tuple(u.unit_id for u in self.units if u.resumed),
+            tag_problems=dict(self._problems),
+            dropped_rows=self._dropped,
+            link=None if self.plant is None else self.plant.status,
+            store=None if self.writer is None else self.writer.status(),
+        )
+
+    # --- running ------------------------------------------------------------------------------
+
+    async def run(self, stop: asyncio.Event, *, end_batches: bool = False) -> ServiceStatus:
+        """Serve until ``stop`` is set; then checkpoint every unit, flush the store and return
+        the final status. ``end_batches``: also record each unit's batch as ended at its last
+        step (the demo, whose plant serves one batch; a live service leaves batches open, for
+        the next start to resume).
+
+        Raises
+        ------
+        SigmatrackError
+            If the store, the security files or the server's endpoint cannot be used at the
+            start.
+        """
+        writer = StoreWriter.from_config(self.site.store).start()
+        self.writer = writer
+        try:
+            self._put_many(audit_rows(self.site, datetime.now(UTC), model_versions(self.site)))
+            self._resume_units()
+            alarms = crystallizer_alarms(self.site.alarms.settings(self.site.guard.heating_phases))
+            async with (
+                PlantClient(self.site, environ=self.environ) as plant,
+                AdvisorServer(self.site, alarms, self._operator_action) as server,
+            ):
+                self.plant, self.server = plant, server
+                clock = self._clock(plant)
+                await self._schedule(clock, stop)
+                self._store_updates()
+                for unit in self.units:
+                    if math.isfinite(unit.last_time_s):
+                        self._put(unit.checkpoint(unit.last_time_s))
+                        if end_batches:
+                            self._put_many(unit.end_batch(unit.last_time_s))
+        finally:
+            if not writer.close(CLOSE_TIMEOUT_S):
+                _log.error("the store did not take every row within %s s", CLOSE_TIMEOUT_S)
+        return self.status()
+
+    def _clock(self, plant: PlantClient) -> Clock:
+        if self.plant_clock_speed is None:
+            return WallClock()
+        return PlantClock(lambda: plant.newest_source_s, self.plant_clock_speed)
+
+    def _resume_units(self) -> None:
+        """Each unit's latest checkpoint from the store, where there is one."""
+        config = self.site.store
+        try:
+            with Store(config.url, schema=config.schema) as store:
+                store.ensure_schema()
+                for unit in self.units:
+                    row = read_latest_checkpoint(store, unit.unit_id)
+                    if row is not None:
+                        unit.resume(row)
+        except StoreError as error:
+            _log.warning("no checkpoint could be read, every unit starts afresh: %s", error)
+
+    async def _schedule(self, clock: Clock, stop: asyncio.Event) -> None:
+        """Step each unit once per tick, spread across it, until ``stop``."""
+        tick = self.site.service.tick_s
+        count = len(self.units)
+        due: list[float] = []
+        while not stop.is_set():
+            now = clock.now_s()
+            if now is None:
+                await _wait(stop, IDLE_WAIT_S)
+                continue
+            if not due:
+                base = math.floor(now / tick) * tick
+                due = [base + tick * (1 + i / count) for i in range(count)]
+            index = min(range(count), key=due.__getitem__)
+            if due[index] > now:
+                await _wait(stop, (due[index] - now) / clock.speed)
+                continue
+            due[index] += tick
+            if due[index] <= now:
+                missed = math.floor((now - due[index]) / tick) + 1
+                self._late += missed
+                due[index] += missed * tick
+            await self._step(self.units[index], now)
+
+    async def _step(self, unit: UnitRunner, time_s: float) -> None:
+        plant, server = self.plant, self.server
+        assert plant is not None
+        assert server is not None
+        if time_s <= unit.last_time_s:
+            return
+        snapshot = plant.sample(unit.unit_id, time_s)
+        for problem in snapshot.problems:
+            self._problems[problem.kind] += 1
+        self._put_many(unit.track_batch(snapshot.dcs.batch_id, time_s))
+        dcs = DcsInputs(
+            permissive=snapshot.dcs.permissive is True,
+            active_setpoint_k=snapshot.dcs.setpoint_k,
+            communication_lost=snapshot.communication_lost,
+        )
+        try:
+            result = unit.pipeline.step(snapshot.sample, dcs)
+        except (SampleOrderError, FilterError) as error:
+            unit.restart(str(error))
+            return
+        unit.last_time_s = time_s
+        unit.steps += 1
+        self._steps += 1
+        outputs = unit_outputs(result)
+        if snapshot.communication_lost:
+            outputs = dataclasses.replace(outputs, proposal=None)  # withdrawn
+        await server.publish(unit.unit_id, outputs)
+        write = await plant.write_outputs(unit.unit_id, result.decision)
+        self._put_many(step_rows(unit.unit_id, outputs, write))
+        if unit.checkpoint_due(time_s):
+            self._put(unit.checkpoint(time_s))
+        self._store_updates()
+        step = UnitStep(unit.unit_id, snapshot, outputs, write.written, unit.batch_id)
+        for listener in self.listeners:
+            called = listener(step)
+            if called is not None:
+                await called
+
+    # --- operators ----------------------------------------------------------------------------
+
+    async def _operator_action(self, action: OperatorAction) -> Sequence[AlarmEvent]:
+        unit = self._by_id.get(action.unit_id)
+        if unit is None:
+            raise ControllerError(f"no unit {action.unit_id!r}")
+        events = unit.pipeline.act(action.alarm, action.action, action.comment, action.duration_s)
+        shelved_until = math.nan
+        if action.action == "shelve" and events:
+            shelved_until = events[-1].time_s + action.duration_s
+        self._put_many(alarm_event_rows(unit.unit_id, events, action.user, shelved_until))
+        return events
+
+    # --- the store ----------------------------------------------------------------------------
+
+    def _store_updates(self) -> None:
+        if self.plant is not None:
+            self._put_many(sample_row(update) for update in self.plant.take_updates())
+
+    def _put(self, row: StoreRow) -> None:
+        assert self.writer is not None
+        if not self.writer.put(row):
+            self._dropped += 1
+
+    def _put_many(self, rows: Iterable[StoreRow]) -> None:
+        for row in rows:
+            self._put(row)
+
+
+async def _wait(stop: asyncio.Event, seconds: float) -> None:
+    with contextlib.suppress(TimeoutError):
+        await asyncio.wait_for(stop.wait(), timeout=max(seconds, 1e-4))
