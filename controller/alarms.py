@@ -48,7 +48,9 @@ from collections import deque
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from enum import Enum
+from typing import Any
 
+from controller.checkpoint import get_float, put_float
 from controller.errors import ControllerError, SettingsError, TimeOrderError
 
 
@@ -193,6 +195,32 @@ class _Alarm:
         self.state = AlarmState.NORMAL
         self.since = math.nan
         self.value = math.nan
+
+    def checkpoint(self) -> dict[str, Any]:
+        return {
+            "active": self.active,
+            "unacked": self.unacked,
+            "on_since": put_float(self.on_since),
+            "off_since": put_float(self.off_since),
+            "shelved_until": put_float(self.shelved_until),
+            "suppressed": self.suppressed,
+            "out_of_service": self.out_of_service,
+            "state": self.state.value,
+            "since": put_float(self.since),
+            "value": put_float(self.value),
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        self.active = bool(state["active"])
+        self.unacked = bool(state["unacked"])
+        self.on_since = get_float(state["on_since"])
+        self.off_since = get_float(state["off_since"])
+        self.shelved_until = get_float(state["shelved_until"])
+        self.suppressed = bool(state["suppressed"])
+        self.out_of_service = bool(state["out_of_service"])
+        self.state = AlarmState(state["state"])
+        self.since = get_float(state["since"])
+        self.value = get_float(state["value"])
 
     def derived_state(self) -> AlarmState:
         if self.out_of_service:
@@ -477,6 +505,38 @@ class AlarmEngine:
             self._reveal(alarm)
             self._record(events, alarm, time_s, EventKind.RETURNED_TO_SERVICE, note)
         return tuple(events)
+
+    # --- checkpoint ---------------------------------------------------------------------------
+
+    def checkpoint(self) -> dict[str, Any]:
+        """The engine's state as plain JSON values (:mod:`controller.checkpoint`): every
+        alarm's condition, timers, shelving and state, and the engine's clock. The history is
+        not kept (the store keeps the events): a restored engine starts an empty one."""
+        return {
+            "time_s": put_float(self._time_s),
+            "dropped_events": self.dropped_events,
+            "alarms": {name: alarm.checkpoint() for name, alarm in self._alarms.items()},
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        """Take the state :meth:`checkpoint` gave, from an engine with the same alarms.
+
+        Raises
+        ------
+        ControllerError
+            If the checkpoint's alarms are not this engine's.
+        """
+        alarms = state["alarms"]
+        if set(alarms) != set(self._alarms):
+            raise ControllerError(
+                f"alarm engine: the checkpoint holds the alarms {sorted(alarms)}, not "
+                f"{sorted(self._alarms)}"
+            )
+        for name, alarm in self._alarms.items():
+            alarm.restore(alarms[name])
+        self._time_s = get_float(state["time_s"])
+        self.dropped_events = int(state["dropped_events"])
+        self._history.clear()
 
     # --- what stands now -------------------------------------------------------------------
 

@@ -26,9 +26,12 @@ doubt it reports.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from enum import Enum
+from typing import Any
 
+from controller.checkpoint import get_float, put_float
 from controller.errors import SettingsError, check_fields
 
 HEARTBEAT_MODULUS = 32768
@@ -276,6 +279,22 @@ class Guard:
     @property
     def heartbeat(self) -> int:
         return self._heartbeat
+
+    def checkpoint(self) -> dict[str, Any]:
+        """The guard's state as plain JSON values (:mod:`controller.checkpoint`)."""
+        return {
+            "last_time_s": put_float(self._last_time_s),
+            "last_beat_s": put_float(self._last_beat_s),
+            "heartbeat": self._heartbeat,
+            "held_rate_k_per_s": put_float(self._held_rate_k_per_s),
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        """Take the state :meth:`checkpoint` gave; the guard then steps as the one saved would."""
+        self._last_time_s = get_float(state["last_time_s"])
+        self._last_beat_s = get_float(state["last_beat_s"])
+        self._heartbeat = int(state["heartbeat"]) % HEARTBEAT_MODULUS
+        self._held_rate_k_per_s = float(get_float(state["held_rate_k_per_s"]))
 
     def _clock(self, time_s: float) -> tuple[float | None, str | None]:
         """Elapsed time to use for the rate limits, or the reason the time is invalid."""

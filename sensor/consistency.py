@@ -16,10 +16,12 @@ References
 from __future__ import annotations
 
 from collections import deque
+from typing import Any
 
 import numpy as np
 from scipy import stats
 
+from controller.checkpoint import get_float, put_float
 from sensor.numerics import FloatArray
 
 NIS_STATES = ("filling", "ok", "high", "low")
@@ -68,6 +70,15 @@ class NisWindow:
         self.window = window
         self.band = nis_band(window, probability)
         self._values: deque[float] = deque(maxlen=window)
+
+    def checkpoint(self) -> list[Any]:
+        """The NIS values in the window, oldest first (strict JSON values)."""
+        return [put_float(v) for v in self._values]
+
+    def restore(self, values: list[Any]) -> None:
+        """Take the values :meth:`checkpoint` gave."""
+        self._values.clear()
+        self._values.extend(get_float(v) for v in values)
 
     def push(self, nis: float) -> None:
         self._values.append(float(nis))

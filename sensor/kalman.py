@@ -46,14 +46,16 @@ References
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numba
 import numpy as np
 from filterpy.kalman import ExtendedKalmanFilter, MerweScaledSigmaPoints, UnscentedKalmanFilter
 from scipy import stats
 
+from controller.checkpoint import get_float, put_float
 from sensor.crystallizer import (
     CONC,
     GROWTH_SCALE,
@@ -66,7 +68,7 @@ from sensor.crystallizer import (
     step_jacobian,
 )
 from sensor.errors import SigmatrackError
-from sensor.numerics import FloatArray
+from sensor.numerics import FloatArray, get_array, put_array
 
 
 class FilterError(SigmatrackError, ArithmeticError):
@@ -445,6 +447,50 @@ class CrystallizerFilter:
         f = self._ukf if self._ukf is not None else self._ekf
         f.x = x.copy()
         f.P = P.copy()
+
+    def checkpoint(self) -> dict[str, Any]:
+        """The filter's state as plain JSON values: its history of events (each with the
+        posterior mean and covariance) and the run of gated analyzer values. Nothing else
+        carries over between events: every event starts from the one before it."""
+        return {
+            "gated_run": self._gated_run,
+            "events": [
+                {
+                    "time_s": put_float(e.time_s),
+                    "jacket_temp_k": put_float(e.jacket_temp_k),
+                    "temp_k": put_float(e.temp_k),
+                    "conc": put_float(e.conc),
+                    "seed": e.seed,
+                    "x": put_array(e.x),
+                    "P": put_array(e.P),
+                }
+                for e in self._events
+            ],
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        """Take the state :meth:`checkpoint` gave, from a filter on the same setup."""
+        n = self.model.layout.size
+        events = []
+        for e in state["events"]:
+            x, P = get_array(e["x"]), get_array(e["P"])
+            if x.shape != (n,) or P.shape != (n, n):
+                raise ValueError(f"checkpoint: a state of shape {x.shape} for a model of {n}")
+            events.append(
+                _Event(
+                    get_float(e["time_s"]),
+                    get_float(e["jacket_temp_k"]),
+                    get_float(e["temp_k"]),
+                    get_float(e["conc"]),
+                    bool(e["seed"]),
+                    x,
+                    P,
+                )
+            )
+        self._events = events
+        self._gated_run = int(state["gated_run"])
+        if events:
+            self._set(events[-1].x, events[-1].P)
 
     def start(
         self, time_s: float, temp_k: float, conc_measured: float, jacket_temp_k: float

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+
+from controller.checkpoint import get_float, put_float
 
 FloatArray = NDArray[np.float64]
 """A numpy array of floats (the type of every vectorised quantity)."""
@@ -57,3 +60,26 @@ def bracketed_newton(
         if np.all(step <= tolerance):
             return x
     raise NoConvergence(f"no convergence in {max_iterations} iterations")
+
+
+def put_array(values: ArrayLike) -> list[Any]:
+    """A float array as nested lists of strict JSON values (:mod:`controller.checkpoint`).
+
+    >>> put_array(np.array([[1.5, np.nan]]))
+    [[1.5, 'nan']]
+    """
+    array = np.asarray(values, dtype=float)
+    if array.ndim == 0:
+        raise ValueError("put_array takes an array, not a number")
+    if array.ndim == 1:
+        return [put_float(v) for v in array.tolist()]
+    return [put_array(row) for row in array]
+
+
+def get_array(values: list[Any]) -> FloatArray:
+    """The array :func:`put_array` wrote."""
+
+    def number(item: Any) -> Any:
+        return [number(v) for v in item] if isinstance(item, list) else get_float(item)
+
+    return np.array(number(values), dtype=float)

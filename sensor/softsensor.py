@@ -20,16 +20,19 @@ with the analyzer value (delayed, by re-filtering).
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
+from controller.checkpoint import get_float, put_float
 from sensor.consistency import NisWindow
 from sensor.crystallizer import CONC, TEMP, ZETA3, CrystallizerModel
 from sensor.errors import SigmatrackError
 from sensor.kalman import CrystallizerFilter, FilterTuning, Measurements, UpdateInfo
 from sensor.metastable import MetastableZone
-from sensor.numerics import FloatArray
+from sensor.numerics import FloatArray, get_array, put_array
 from sensor.outputs import Estimates, estimates
 from sensor.samples import Reading, Sample, severity
 from sensor.validation import Reason, SignalRules, check_reading, new_signal_state
@@ -155,6 +158,18 @@ class _Signal:
     def stale(self, time_s: float) -> bool:
         return time_s - self.accepted_at > self.stale_after_s
 
+    def checkpoint(self) -> dict[str, Any]:
+        return {
+            "state": put_array(self.state),
+            "value": put_float(self.value),
+            "accepted_at": put_float(self.accepted_at),
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        self.state = get_array(state["state"])
+        self.value = get_float(state["value"])
+        self.accepted_at = get_float(state["accepted_at"])
+
 
 class SoftSensor:
     """The soft sensor of one unit (module docstring). Not thread-safe: one caller steps it."""
@@ -176,6 +191,35 @@ class SoftSensor:
     def jacket_temp_k(self) -> float:
         """The jacket temperature held as the model's input [K] (NaN before the first)."""
         return self._jacket.value
+
+    def checkpoint(self) -> dict[str, Any]:
+        """The soft sensor's whole state as plain JSON values (:mod:`controller.checkpoint`):
+        the filter's history with means and covariances, each signal's validation state and
+        last accepted reading, the NIS window, the last sample's time and whether the seed is
+        in. A soft sensor on the same setup given it by :meth:`restore` steps on exactly as
+        this one would."""
+        return {
+            "last_time_s": put_float(self._last_time),
+            "seeded": self._seeded,
+            "filter": self.filter.checkpoint(),
+            "signals": {
+                "temp": self._temp.checkpoint(),
+                "jacket_temp": self._jacket.checkpoint(),
+                "conc": self._conc.checkpoint(),
+            },
+            "nis": self._nis.checkpoint(),
+        }
+
+    def restore(self, state: Mapping[str, Any]) -> None:
+        """Take the state :meth:`checkpoint` gave (from a soft sensor on the same setup)."""
+        self._last_time = get_float(state["last_time_s"])
+        self._seeded = bool(state["seeded"])
+        self.filter.restore(state["filter"])
+        signals = state["signals"]
+        self._temp.restore(signals["temp"])
+        self._jacket.restore(signals["jacket_temp"])
+        self._conc.restore(signals["conc"])
+        self._nis.restore(state["nis"])
 
     def step(self, sample: Sample) -> StepResult:
         """Validate, filter and report one sample.

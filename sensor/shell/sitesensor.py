@@ -11,6 +11,7 @@ from sensor.crystallizer import Kinetics, build_model, seed_moments
 from sensor.errors import SiteConfigError, UnitError
 from sensor.kalman import FilterTuning, Measurements
 from sensor.metastable import MetastableZone
+from sensor.pipeline import PipelineSetup
 from sensor.shell.config import BATCH_PHASES, SiteConfig, UnitConfig
 from sensor.shell.sitemodels import (
     fit_site_solubility,
@@ -161,4 +162,19 @@ def unit_setup(site: SiteConfig, index: int, zone: MetastableZone) -> UnitSetup:
         all_phases=frozenset(BATCH_PHASES),
         nis_window=filter_config.nis_window,
         nis_probability=filter_config.nis_probability,
+    )
+
+
+def pipeline_setup(site: SiteConfig, index: int, zone: MetastableZone) -> PipelineSetup:
+    """The pipeline setup of ``site.unit[index]``: its soft sensor (:func:`unit_setup`), the
+    law (``[controller]``, the zone read no slower than its slowest measured rate), the guard
+    (``[guard]``, updates every ``controller.update_interval_s``) and the alarms (``[alarms]``,
+    undersaturation intended in ``guard.heating_phases``)."""
+    interval_s = site.controller.update_interval_s
+    return PipelineSetup(
+        unit_id=site.unit[index].id,
+        sensor=unit_setup(site, index, zone),
+        law=site.controller.law_settings(zone.rate_range_k_per_s[0]),
+        limits=site.guard.limits(interval_s),
+        alarms=site.alarms.settings(site.guard.heating_phases),
     )

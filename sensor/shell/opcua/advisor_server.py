@@ -61,6 +61,7 @@ from controller.errors import ControllerError
 from controller.guard import GuardDecision
 from controller.law import Proposal
 from sensor.outputs import Estimates
+from sensor.pipeline import PipelineResult
 from sensor.shell.config import SiteConfig
 from sensor.shell.opcua.security import caller_role, secure_server
 from sensor.shell.opcua.users import Users
@@ -247,6 +248,20 @@ class UnitOutputs:
     events: Sequence[AlarmEvent] = ()
     health_good: bool = False
     communication_lost: bool = False
+
+
+def unit_outputs(result: PipelineResult) -> UnitOutputs:
+    """The server's view of one step of a unit's pipeline (the same fields)."""
+    return UnitOutputs(
+        time_s=result.time_s,
+        step=result.step,
+        proposal=result.proposal,
+        decision=result.decision,
+        alarms=result.alarms,
+        events=result.events,
+        health_good=result.health_good,
+        communication_lost=result.communication_lost,
+    )
 
 
 def _celsius(temp_k: float) -> float:
