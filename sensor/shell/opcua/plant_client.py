@@ -105,6 +105,8 @@ FILTER_REFUSED = frozenset(
     {ua.StatusCodes.BadMonitoredItemFilterUnsupported, ua.StatusCodes.BadFilterNotAllowed}
 )
 WRITTEN_SIGNALS = ("remote_setpoint", "heartbeat")
+MEASURED_SIGNALS = frozenset({"temp", "jacket_temp", "conc"})
+"""The signals the plant's instruments stamp (source timestamps of the plant's own clock)."""
 DEFAULT_WRITE_TYPES = {"remote_setpoint": ua.VariantType.Double, "heartbeat": ua.VariantType.Int32}
 """The type written to a tag whose DataType is abstract (Number, Integer) and whose value is
 null; the server refuses it if it wants another (BadTypeMismatch, reported)."""
@@ -525,7 +527,10 @@ class PlantClient:
         self._keep(problem)
         if value is None:
             return
-        if self._newest_source_s is None or value.source_time_s > self._newest_source_s:
+        measured = track.spec.signal in MEASURED_SIGNALS
+        if measured and (
+            self._newest_source_s is None or value.source_time_s > self._newest_source_s
+        ):
             self._newest_source_s = value.source_time_s
         if len(self._updates) >= self.config.notification_queue_max:
             self._updates.popleft()
@@ -547,8 +552,10 @@ class PlantClient:
 
     @property
     def newest_source_s(self) -> float | None:
-        """The newest source timestamp of any value accepted so far [s since the Unix epoch]
-        (a simulated plant's clock, :class:`~sensor.shell.service.clock.PlantClock`)."""
+        """The newest source timestamp of a measured value (:data:`MEASURED_SIGNALS`) accepted
+        so far [s since the Unix epoch]: a simulated plant's clock
+        (:class:`~sensor.shell.service.clock.PlantClock`). The tags others write (permissive,
+        remote setpoint, heartbeat) carry the writer's clock, so they do not count."""
         return self._newest_source_s
 
     def take_updates(self) -> list[TagUpdate]:

@@ -8,7 +8,9 @@ from                      row                    notes
                                                  StatusCode and both timestamps
 ``UnitOutputs.step``      ``EstimateRow``        SI: K, kg/kg solvent, m
 ``UnitOutputs.decision``  ``ProposalRow``        the guarded setpoint, the guard's mode;
-                                                 ``written``: the DCS accepted the write
+                                                 ``written``: the DCS accepted the write;
+                                                 a write skipped (the previous one still
+                                                 in flight) is said in ``reason``
 ``UnitOutputs.events``    ``AlarmEventRow``      every event, with the operator for
                                                  acknowledge, shelve and unshelve
 ========================  =====================  =======================================
@@ -115,15 +117,20 @@ def estimate_row(unit_id: str, outputs: UnitOutputs) -> EstimateRow | None:
     )
 
 
-def proposal_row(unit_id: str, outputs: UnitOutputs, write: WriteResult | None) -> ProposalRow:
+def proposal_row(
+    unit_id: str, outputs: UnitOutputs, write: WriteResult | None, skipped: bool = False
+) -> ProposalRow:
     """The guard's decision at a step (``outputs.decision`` must be set); ``written`` when the
-    DCS accepted the remote setpoint."""
+    DCS accepted the remote setpoint; ``skipped``: not sent, the unit's previous write was
+    still in flight."""
     decision = outputs.decision
     assert decision is not None
     written = write is not None and any(s == "remote_setpoint" for s, _v in write.written)
     reasons = list(decision.reasons)
     if write is not None:
         reasons += [f"write of {signal} failed: {why}" for signal, why in write.failed]
+    if skipped and decision.write:
+        reasons.append("not sent: the previous write to the DCS was still in flight")
     if not reasons and outputs.proposal is not None:
         reasons = [outputs.proposal.reason]
     return ProposalRow(
@@ -169,14 +176,13 @@ def alarm_event_rows(
     return rows
 
 
-def step_rows(unit_id: str, outputs: UnitOutputs, write: WriteResult | None) -> list[StoreRow]:
-    """Everything one step of a unit gives the store: its estimate, the guard's decision and
-    the step's alarm events."""
+def step_rows(unit_id: str, outputs: UnitOutputs) -> list[StoreRow]:
+    """What one step of a unit gives the store before its write is done: its estimate and the
+    step's alarm events (the guard's decision follows with the write's outcome,
+    :func:`proposal_row`)."""
     rows: list[StoreRow] = []
     estimate = estimate_row(unit_id, outputs)
     if estimate is not None:
         rows.append(estimate)
-    if outputs.decision is not None:
-        rows.append(proposal_row(unit_id, outputs, write))
     rows += alarm_event_rows(unit_id, outputs.events)
     return rows

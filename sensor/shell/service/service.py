@@ -62,7 +62,7 @@ from sensor.shell.opcua.advisor_server import (
 )
 from sensor.shell.opcua.plant_client import ConnectionStatus, PlantClient, UnitSnapshot
 from sensor.shell.service.clock import Clock, PlantClock, WallClock
-from sensor.shell.service.records import alarm_event_rows, sample_row, step_rows
+from sensor.shell.service.records import alarm_event_rows, proposal_row, sample_row, step_rows
 from sensor.shell.service.units import UnitRunner
 from sensor.shell.sitemodels import fit_site_solubility, site_metastable_zone
 from sensor.shell.sitesensor import pipeline_setup
@@ -120,6 +120,8 @@ class ServiceStatus:
     resumed : units that resumed from a stored checkpoint
     tag_problems : tag problems reported by the plant client, by kind
     dropped_rows : rows the store's writer refused (its buffer was full)
+    skipped_writes : decisions not sent to the DCS because the unit's previous write was
+        still in flight
     link : the plant link
     store : the writer
     """
@@ -129,6 +131,7 @@ class ServiceStatus:
     resumed: tuple[str, ...]
     tag_problems: Mapping[str, int]
     dropped_rows: int
+    skipped_writes: int
     link: ConnectionStatus | None
     store: WriterStatus | None
 
@@ -186,6 +189,7 @@ class Service:
         self._late = 0
         self._problems: Counter[str] = Counter()
         self._dropped = 0
+        self._skipped = 0
 
     # --- status -------------------------------------------------------------------------------
 
@@ -196,6 +200,7 @@ class Service:
             resumed=tuple(u.unit_id for u in self.units if u.resumed),
             tag_problems=dict(self._problems),
             dropped_rows=self._dropped,
+            skipped_writes=self._skipped,
             link=None if self.plant is None else self.plant.status,
             store=None if self.writer is None else self.writer.status(),
         )
@@ -227,6 +232,7 @@ class Service:
                 self.plant, self.server = plant, server
                 clock = self._clock(plant)
                 await self._schedule(clock, stop)
+                await self._finish_writes()
                 self._store_updates()
                 for unit in self.units:
                     if math.isfinite(unit.last_time_s):
@@ -307,16 +313,45 @@ class Service:
         if snapshot.communication_lost:
             outputs = dataclasses.replace(outputs, proposal=None)  # withdrawn
         await server.publish(unit.unit_id, outputs)
-        write = await plant.write_outputs(unit.unit_id, result.decision)
-        self._put_many(step_rows(unit.unit_id, outputs, write))
+        self._put_many(step_rows(unit.unit_id, outputs))
+        await self._write(unit, outputs)
         if unit.checkpoint_due(time_s):
             self._put(unit.checkpoint(time_s))
         self._store_updates()
-        step = UnitStep(unit.unit_id, snapshot, outputs, write.written, unit.batch_id)
+        step = UnitStep(unit.unit_id, snapshot, outputs, unit.last_written, unit.batch_id)
         for listener in self.listeners:
             called = listener(step)
             if called is not None:
                 await called
+
+    async def _write(self, unit: UnitRunner, outputs: UnitOutputs) -> None:
+        """Hand the guard's decision to the plant client. Without ``opcua.write_to_dcs`` that
+        sends nothing; with it, the write runs as a task of its own, so that a round trip to
+        the DCS never delays the other units; while a unit's previous write is still in flight
+        the new decision is not sent (the next one makes its own; counted in
+        :attr:`ServiceStatus.skipped_writes`)."""
+        plant = self.plant
+        assert plant is not None
+        if not self.site.opcua.write_to_dcs:
+            result = await plant.write_outputs(unit.unit_id, outputs.decision)  # type: ignore[arg-type]
+            self._put(proposal_row(unit.unit_id, outputs, result))
+            return
+        if unit.write_task is not None and not unit.write_task.done():
+            self._skipped += 1
+            self._put(proposal_row(unit.unit_id, outputs, None, skipped=True))
+            return
+
+        async def write() -> None:
+            result = await plant.write_outputs(unit.unit_id, outputs.decision)  # type: ignore[arg-type]
+            unit.last_written = result.written
+            self._put(proposal_row(unit.unit_id, outputs, result))
+
+        unit.write_task = asyncio.create_task(write(), name=f"write-{unit.unit_id}")
+
+    async def _finish_writes(self) -> None:
+        tasks = [u.write_task for u in self.units if u.write_task is not None]
+        if tasks:
+            await asyncio.gather(*tasks, return_exceptions=True)
 
     # --- operators ----------------------------------------------------------------------------
 

@@ -8,6 +8,7 @@ that cannot be used (another version, another unit), starts the unit afresh, and
 
 from __future__ import annotations
 
+import asyncio
 import json
 import logging
 from dataclasses import dataclass, field
@@ -42,6 +43,8 @@ class UnitRunner:
     last_checkpoint_s: float = -float("inf")
     last_time_s: float = -float("inf")
     steps: int = 0
+    write_task: asyncio.Task[None] | None = None
+    last_written: tuple[tuple[str, float | int], ...] = ()
 
     def __post_init__(self) -> None:
         self.pipeline = UnitPipeline(self.setup)
