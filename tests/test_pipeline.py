@@ -69,7 +69,8 @@ def test_the_pipeline_proposes_writes_and_counts_the_heartbeat(setup, samples):
     assert proposed[0] == CONTROLLED_FROM_S
     assert sum(r.decision.write for r in cooling) > 0.9 * len(cooling)
     beats = [r.decision.heartbeat for r in results]
-    assert np.all(np.diff(beats) >= 0) and beats[-1] - beats[0] == pytest.approx(
+    assert np.all(np.diff(beats) >= 0)
+    assert beats[-1] - beats[0] == pytest.approx(
         (samples[-1].time_s - samples[0].time_s) / setup.limits.heartbeat_period_s, abs=1
     )
     # never below the active setpoint minus the guard's rate (the estimated temperature here)
@@ -77,7 +78,8 @@ def test_the_pipeline_proposes_writes_and_counts_the_heartbeat(setup, samples):
         if r.decision.write:
             assert r.decision.cooling_rate_k_per_s <= setup.limits.max_cooling_rate_k_per_s + 1e-12
     outputs = unit_outputs(results[-1])
-    assert outputs.decision is results[-1].decision and outputs.alarms == results[-1].alarms
+    assert outputs.decision is results[-1].decision
+    assert outputs.alarms == results[-1].alarms
 
 
 def test_no_write_without_the_permissive(setup, samples):
@@ -96,7 +98,8 @@ def test_lost_communication_is_a_doubt_and_an_alarm(setup, samples):
     assert late.decision.mode is GuardMode.FALLBACK
     assert "communication with the DCS is lost" in late.decision.reasons
     status = {s.name: s for s in late.alarms}["communication-lost"]
-    assert status.condition_active and status.state.value == "unacknowledged"
+    assert status.condition_active
+    assert status.state.value == "unacknowledged"
     raised = [e for r in results for e in r.events if e.alarm == "communication-lost"]
     # raised after the on-delay (the first sample counts from 0 s)
     assert raised[0].time_s == samples[0].time_s + setup.alarms.on_delay_s
@@ -110,7 +113,8 @@ def test_operator_actions_reach_the_alarm_engine(setup, samples):
     for s in samples[:100]:
         pipeline.step(s, lost)
     (event,) = pipeline.act("communication-lost", "acknowledge", note="seen")
-    assert event.kind.value == "acknowledged" and event.time_s == samples[99].time_s
+    assert event.kind.value == "acknowledged"
+    assert event.time_s == samples[99].time_s
     (event,) = pipeline.act("communication-lost", "shelve", duration_s=600.0)
     assert event.after.value == "shelved"
     (event,) = pipeline.act("communication-lost", "unshelve")

@@ -13,12 +13,13 @@ import csv
 import math
 import sys
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import IO, Any
 
 import numpy as np
 
+from controller.guard import GuardMode
 from sensor.batchfilter import (
     FLAG_CONC_STALE,
     FLAG_JACKET_STALE,
@@ -33,8 +34,11 @@ from sensor.batchfilter import (
 from sensor.consistency import NIS_STATES, nis_state_codes
 from sensor.errors import SigmatrackError
 from sensor.outputs import Estimates, estimates
+from sensor.pipeline import PipelineSetup
 from sensor.shell.historian import HistorianBatch
+from sensor.shell.shadow import SHADOW_COLUMNS, ShadowTrack, shadow_run
 from sensor.softsensor import UnitSetup
+from sensor.units import ZERO_CELSIUS_K
 from sensor.validation import REASON_LABELS, Reason
 
 SIGNAL_NAMES = ("temp", "jacket_temp", "conc")
@@ -42,13 +46,15 @@ SIGNAL_NAMES = ("temp", "jacket_temp", "conc")
 
 @dataclass(frozen=True)
 class BatchResult:
-    """One replayed batch: the kernel's record and the outputs of its started samples."""
+    """One replayed batch: the kernel's record, the outputs of its started samples, and the
+    advisor's shadow run (None when the advisor was not run)."""
 
     batch: HistorianBatch
     output: KernelOutput
     started: np.ndarray
     estimates: Estimates
     nis_state: np.ndarray
+    shadow: ShadowTrack | None = None
 
 
 @dataclass(frozen=True)
@@ -72,6 +78,10 @@ class BatchSummary:
     final_analyzer_bias: float | None
     nis_ok_fraction: float | None
     error: str | None = None
+    alarms_raised: dict[str, int] | None = None
+    advised_s: float | None = None
+    fallback_s: float | None = None
+    proposals: int | None = None
 
     def as_json(self) -> dict[str, Any]:
         return dict(self.__dict__)
@@ -100,6 +110,15 @@ def summarise(result: BatchResult, unit_id: str) -> BatchSummary:
         ok_fraction = (
             float(np.mean(result.nis_state[started][nis_known] == 1)) if np.any(nis_known) else None
         )
+        shadow = {}
+        if result.shadow is not None:
+            track = result.shadow
+            shadow = {
+                "alarms_raised": track.alarms_raised(),
+                "advised_s": track.time_in_mode_s(times, GuardMode.ADVISING),
+                "fallback_s": track.time_in_mode_s(times, GuardMode.FALLBACK),
+                "proposals": int(np.sum(track.proposed)),
+            }
         first_started = int(np.flatnonzero(started)[0])
         started_stamps = [batch.timestamps[k] for k in np.flatnonzero(started)]
         return BatchSummary(
@@ -119,6 +138,7 @@ def summarise(result: BatchResult, unit_id: str) -> BatchSummary:
             final_yield_kg=_none_if_nan(est.yield_kg[-1]),
             final_analyzer_bias=_none_if_nan(est.analyzer_bias[-1]),
             nis_ok_fraction=ok_fraction,
+            **shadow,
         )
     return failed_summary(
         batch,
@@ -189,12 +209,15 @@ class Replay:
     unit_ids : unit index -> the unit's id
     threads : numba threads for the kernel
     chunk : batches per kernel call (bounds memory)
+    advisors : unit index -> pipeline setup, for the units whose batches get the advisor's
+        shadow run (:mod:`sensor.shell.shadow`); a unit not here gets none
     """
 
     setups: dict[int, UnitSetup]
     unit_ids: dict[int, str]
     threads: int = 1
     chunk: int = 64
+    advisors: dict[int, PipelineSetup] = field(default_factory=dict)
     summaries: list[BatchSummary] = field(default_factory=list)
 
     def run(
@@ -234,6 +257,18 @@ class Replay:
         if isinstance(out, SigmatrackError):
             return failed_summary(batch, unit_id, f"{batch.file}: {_located(batch, out)}")
         result = outputs_of(setup, batch, out)
+        advisor = self.advisors.get(batch.unit)
+        if advisor is not None:
+            track = shadow_run(
+                advisor,
+                batch.arrays.time_s,
+                batch.phases,
+                out,
+                result.started,
+                result.estimates,
+                result.nis_state,
+            )
+            result = replace(result, shadow=track)
         if sink is not None:
             sink(result)
         return summarise(result, unit_id)
@@ -260,8 +295,10 @@ ESTIMATE_COLUMNS = (
     "inputs_valid",
     "seeded",
     "widened",
+    *SHADOW_COLUMNS,
 )
-"""Columns of the ``--estimates`` CSV (README explains each)."""
+"""Columns of the ``--estimates`` CSV (README explains each); the shadow run's are blank for a
+batch replayed without the advisor."""
 
 
 class EstimatesWriter:
@@ -280,6 +317,7 @@ class EstimatesWriter:
         started_rows = np.cumsum(result.started) - 1
         t0 = batch.arrays.time_s[0]
         flags = out.flags
+        events = event_cells(result.shadow)
         for k in range(batch.samples):
             row: list[object] = [
                 batch.batch,
@@ -299,7 +337,32 @@ class EstimatesWriter:
             row.append(int(not flags[k] & stale))
             row.append(int(bool(flags[k] & FLAG_SEEDED)))
             row.append(int(bool(flags[k] & FLAG_WIDENED)))
+            row.extend(shadow_cells(result.shadow, k, events.get(k, "")))
             self._writer.writerow(row)
+
+
+def event_cells(track: ShadowTrack | None) -> dict[int, str]:
+    """The ``alarm_events`` cell of each sample with events: ``alarm:event``, ``;``-joined."""
+    cells: dict[int, list[str]] = {}
+    if track is not None:
+        for k, e in zip(track.event_sample, track.events, strict=True):
+            cells.setdefault(int(k), []).append(f"{e.alarm}:{e.kind.value}")
+    return {k: ";".join(v) for k, v in cells.items()}
+
+
+def shadow_cells(track: ShadowTrack | None, k: int, events: str) -> list[str]:
+    """The shadow run's cells of sample ``k`` (blank without a shadow run)."""
+    if track is None:
+        return [""] * len(SHADOW_COLUMNS)
+    return [
+        _number(track.proposal_setpoint_k[k] - ZERO_CELSIUS_K),
+        _number(track.proposal_rate_k_per_s[k] * 60.0),
+        track.proposal_mode[k],
+        track.guard_mode[k],
+        _number(track.guard_setpoint_k[k] - ZERO_CELSIUS_K),
+        str(int(track.write[k])),
+        events,
+    ]
 
 
 def _number(value: float) -> str:

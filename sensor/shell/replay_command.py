@@ -20,7 +20,7 @@ from sensor.errors import DataFileError
 from sensor.shell.config import SiteConfig, load_site_file
 from sensor.shell.historian import HistorianBatch, read_historian_csv
 from sensor.shell.replay import BatchSummary, Progress, Replay, write_estimates
-from sensor.shell.sitesensor import site_zone, unit_setup
+from sensor.shell.sitesensor import pipeline_setups, site_zone, unit_setup
 from sensor.shell.tables import format_table
 from sensor.softsensor import UnitSetup
 
@@ -59,6 +59,14 @@ def register(commands: argparse._SubParsersAction) -> None:
     parser.add_argument("--json", action="store_true", help="print the summaries as JSON")
     parser.add_argument(
         "--unit", metavar="ID", help="the unit the files belong to (default: from their columns)"
+    )
+    parser.add_argument(
+        "--no-advisor",
+        action="store_true",
+        help=(
+            "skip the advisor's shadow run (the proposals and alarms that would have happened); "
+            "faster over many batches"
+        ),
     )
     parser.add_argument(
         "--threads",
@@ -113,6 +121,7 @@ def run_replay(args: argparse.Namespace) -> int:
         setups={i: setups(i) for i in units},
         unit_ids={i: site.unit[i].id for i in units},
         threads=max(1, args.threads),
+        advisors={} if args.no_advisor else pipeline_setups(site, zone, units, setups),
     )
     stream = None
     sink = None

@@ -4,6 +4,8 @@ rules, converted to SI here, once."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Iterable
+from dataclasses import replace
 
 import numpy as np
 
@@ -178,3 +180,14 @@ def pipeline_setup(site: SiteConfig, index: int, zone: MetastableZone) -> Pipeli
         limits=site.guard.limits(interval_s),
         alarms=site.alarms.settings(site.guard.heating_phases),
     )
+
+
+def pipeline_setups(
+    site: SiteConfig,
+    zone: MetastableZone,
+    units: Iterable[int],
+    setups: Callable[[int], UnitSetup],
+) -> dict[int, PipelineSetup]:
+    """The pipeline setup of each of ``units``, reusing their soft-sensor setups
+    (``setups(index)``, e.g. a cached :func:`unit_setup`): what replay's shadow run needs."""
+    return {i: replace(pipeline_setup(site, i, zone), sensor=setups(i)) for i in units}

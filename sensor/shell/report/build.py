@@ -74,6 +74,29 @@ def advisor_from_record(record: BatchRecord, t0_s: float) -> AdvisorTrack | None
     )
 
 
+def advisor_from_shadow(result: BatchResult) -> AdvisorTrack | None:
+    """The proposals and alarm events of a replayed batch's shadow run (``None`` without one):
+    the law's proposed setpoint at each update where the guard would have written it (NaN
+    where it would not), every alarm event; times from the batch's first row."""
+    track = result.shadow
+    if track is None:
+        return None
+    times = result.batch.arrays.time_s
+    t0 = float(times[0])
+    updates = np.flatnonzero(track.proposed)
+    setpoint_c = np.where(
+        track.write[updates], track.proposal_setpoint_k[updates] - ZERO_CELSIUS_K, np.nan
+    )
+    return AdvisorTrack(
+        time_s=times[updates] - t0,
+        setpoint_c=setpoint_c,
+        alarms=tuple(
+            AlarmMark(e.time_s - t0, e.alarm, e.kind.value, e.priority.value) for e in track.events
+        ),
+        origin="shadow mode (replay)",
+    )
+
+
 class ViewCollector:
     """A replay sink keeping a view of every batch (module docstring).
 
@@ -81,7 +104,8 @@ class ViewCollector:
     ----------
     setups : the soft-sensor setup of a unit by index
     unit_ids : unit index -> the unit's id
-    advisors : advisor tracks of batches, keyed by the batch object's ``id()``
+    advisors : advisor tracks of batches, keyed by the batch object's ``id()`` (what the live
+        service recorded); a batch without one shows its shadow run, if the replay made one
     sources : where batches came from, for the page, keyed the same way
     """
 
@@ -105,7 +129,7 @@ class ViewCollector:
             self._setups(batch.unit),
             result,
             summarise(result, self._unit_ids[batch.unit]),
-            advisor=self._advisors.get(key),
+            advisor=self._advisors.get(key) or advisor_from_shadow(result),
             source=self._sources.get(key),
         )
 

@@ -155,6 +155,11 @@ KPIS = (
         "estimated calibration offset of the analyzer", compared=False),
     Kpi("nis_ok_fraction", "estimate consistent (NIS ok)", "NIS ok", "%", 100.0, 1,
         "share of samples where the analyzer agreed with the model within its band"),
+    Kpi("advised_s", "advisor would have written", "advised", "h", 1 / 3600, 2,
+        "time the guard would have written its setpoint (shadow run; – when not run)",
+        compared=False),
+    Kpi("fallback_s", "advisor stepped aside", "fallback", "h", 1 / 3600, 2,
+        "time the guard would have been in its fallback, in doubt", compared=False),
     Kpi("rejected", "readings rejected", "rejected", "", 1.0, 0,
         "readings that arrived and did not reach the filter", compared=False),
 )  # fmt: skip

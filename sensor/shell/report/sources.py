@@ -20,7 +20,7 @@ from sensor.shell.historian import HistorianBatch, read_historian_csv
 from sensor.shell.replay import Progress, Replay
 from sensor.shell.report.build import ViewCollector, advisor_from_record
 from sensor.shell.report.view import AdvisorTrack, BatchView
-from sensor.shell.sitesensor import site_zone, unit_setup
+from sensor.shell.sitesensor import pipeline_setups, site_zone, unit_setup
 from sensor.shell.store.database import Store
 from sensor.shell.store.reader import read_batch
 from sensor.shell.storebatch import stored_batch
@@ -102,6 +102,11 @@ def load_views(
     units = sorted({b.unit for b in batches})
     unit_ids = {i: site.unit[i].id for i in units}
     collector = ViewCollector(setups, unit_ids, advisors, sources)
-    replay = Replay({i: setups(i) for i in units}, unit_ids, threads=max(1, threads))
+    replay = Replay(
+        {i: setups(i) for i in units},
+        unit_ids,
+        threads=max(1, threads),
+        advisors=pipeline_setups(site, zone, units, setups),
+    )
     summaries = replay.run(batches, sink=collector, progress=Progress())
     return Loaded(site, zone, collector.views(batches, summaries), failed)
