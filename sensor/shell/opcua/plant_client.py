@@ -281,6 +281,7 @@ class PlantClient:
         self._logged: dict[tuple[str, str, str], tuple[float, int]] = {}
         self._status = ConnectionStatus(ConnectionState.STARTING, time.time())
         self._newest_source_s: float | None = None
+        self._arrivals: set[str] = set()
         self._client: Client | None = None
         self._pending: set[asyncio.Task] = set()
         self._lost_reason = ""
@@ -528,6 +529,8 @@ class PlantClient:
         if value is None:
             return
         measured = track.spec.signal in MEASURED_SIGNALS
+        if track.spec.signal == "temp":
+            self._arrivals.add(track.spec.unit_id)
         if measured and (
             self._newest_source_s is None or value.source_time_s > self._newest_source_s
         ):
@@ -557,6 +560,11 @@ class PlantClient:
         (:class:`~sensor.shell.service.clock.PlantClock`). The tags others write (permissive,
         remote setpoint, heartbeat) carry the writer's clock, so they do not count."""
         return self._newest_source_s
+
+    def take_arrivals(self) -> set[str]:
+        """The units whose reactor temperature (their scan) arrived since the last call."""
+        arrivals, self._arrivals = self._arrivals, set()
+        return arrivals
 
     def take_updates(self) -> list[TagUpdate]:
         """Every value accepted since the last call, oldest first (for the store)."""

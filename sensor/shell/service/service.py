@@ -7,9 +7,12 @@
         └─ take_updates() ─> samples        └─> estimates, proposals, alarm events ─> StoreWriter
                                                              checkpoints (periodic) ─┘
 
-**Ticks.** Every unit is stepped once per ``service.tick_s``, the units spread evenly across
-the tick (unit ``i`` of ``n`` at ``i/n`` of it), so that their work, their publishes and
-their writes never pile up in one instant. A step's time is the clock's time when it runs
+**Ticks.** A unit is stepped as soon as a new reactor temperature of it arrives (its scan),
+at most once per half ``service.tick_s``, and in any case a tick after its previous step (so
+that an outage or a silent tag is noticed and stepped through). Where no scan arrives, the
+units are spread evenly across the tick (unit ``i`` of ``n`` at ``i/n`` of it), so that their
+work, their publishes and their writes never pile up in one instant; where the plant spreads
+its scans, so are the steps. A step's time is the clock's time when it runs
 (:mod:`~sensor.shell.service.clock`), never earlier than the unit's previous one. A unit that
 falls more than a tick behind (the machine stalled) skips the ticks it missed, counted in
 :attr:`ServiceStatus.late_ticks`; nothing is stepped twice.
@@ -81,6 +84,10 @@ _log = logging.getLogger(__name__)
 
 IDLE_WAIT_S = 0.05
 """Wall time to wait while the clock is not known yet (a simulated plant's first value) [s]."""
+POLL_S = 0.01
+"""How often the scheduler looks for units whose scan has arrived [s of wall time]."""
+MIN_GAP_TICKS = 0.5
+"""A unit is stepped at most once per this share of a tick, however often its values come."""
 CLOSE_TIMEOUT_S = 30.0
 """Longest wait for the store to make every row durable when stopping [s]."""
 
@@ -263,9 +270,13 @@ class Service:
             _log.warning("no checkpoint could be read, every unit starts afresh: %s", error)
 
     async def _schedule(self, clock: Clock, stop: asyncio.Event) -> None:
-        """Step each unit once per tick, spread across it, until ``stop``."""
+        """Step each unit when its scan arrives, and at least once per tick, until ``stop``
+        (module docstring)."""
+        plant = self.plant
+        assert plant is not None
         tick = self.site.service.tick_s
         count = len(self.units)
+        index_of = {unit.unit_id: i for i, unit in enumerate(self.units)}
         due: list[float] = []
         while not stop.is_set():
             now = clock.now_s()
@@ -275,15 +286,18 @@ class Service:
             if not due:
                 base = math.floor(now / tick) * tick
                 due = [base + tick * (1 + i / count) for i in range(count)]
+            for unit_id in plant.take_arrivals():
+                i = index_of[unit_id]
+                soonest = self.units[i].last_time_s + MIN_GAP_TICKS * tick
+                due[i] = min(due[i], max(now, soonest))
             index = min(range(count), key=due.__getitem__)
             if due[index] > now:
-                await _wait(stop, (due[index] - now) / clock.speed)
+                await _wait(stop, min(due[index] - now, POLL_S * clock.speed) / clock.speed)
                 continue
-            due[index] += tick
-            if due[index] <= now:
-                missed = math.floor((now - due[index]) / tick) + 1
+            missed = math.floor((now - due[index]) / tick)
+            if missed > 0:
                 self._late += missed
-                due[index] += missed * tick
+            due[index] = now + tick
             await self._step(self.units[index], now)
 
     async def _step(self, unit: UnitRunner, time_s: float) -> None:
