@@ -8,7 +8,7 @@
                                                              checkpoints (periodic) ─┘
 
 **Ticks.** A unit is stepped as soon as a new reactor temperature of it arrives (its scan),
-at most once per half ``service.tick_s``, and in any case a tick after its previous step (so
+at most once per 0.9 ``service.tick_s``, and in any case a tick after its previous step (so
 that an outage or a silent tag is noticed and stepped through). Where no scan arrives, the
 units are spread evenly across the tick (unit ``i`` of ``n`` at ``i/n`` of it), so that their
 work, their publishes and their writes never pile up in one instant; where the plant spreads
@@ -86,8 +86,9 @@ IDLE_WAIT_S = 0.05
 """Wall time to wait while the clock is not known yet (a simulated plant's first value) [s]."""
 POLL_S = 0.01
 """How often the scheduler looks for units whose scan has arrived [s of wall time]."""
-MIN_GAP_TICKS = 0.5
-"""A unit is stepped at most once per this share of a tick, however often its values come."""
+MIN_GAP_TICKS = 0.9
+"""A unit is stepped at most once per this share of a tick, however often its values come
+(a little under one, so that a scan arriving a little early is not held for a whole tick)."""
 CLOSE_TIMEOUT_S = 30.0
 """Longest wait for the store to make every row durable when stopping [s]."""
 
