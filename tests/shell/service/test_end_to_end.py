@@ -135,9 +135,7 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
     assert set(stored) <= set(sent), "a stored sample the plant never published"
     # a link lost is noticed within DETECT_S; once back, its subscription is made afresh
     # within RESUBSCRIBE_S (values between are not recovered: the plant historian has them)
-    windows = [
-        (a - DETECT_S * SPEED, b + RESUBSCRIBE_S * SPEED) for a, b in _outage_windows(steps)
-    ]
+    windows = [(a - DETECT_S * SPEED, b + RESUBSCRIBE_S * SPEED) for a, b in _outage_windows(steps)]
     assert len(windows) == 2
     missing = [
         key for key in sent if first <= key[2].timestamp() <= last - SPEED and key not in stored
