@@ -550,6 +550,53 @@ class UnitConfig:
             raise Invalid("phase_values", "two phases share one DCS value")
 
 
+def _in_range(lo: float, hi: float):
+    def check(value: float) -> str | None:
+        return None if lo <= value <= hi else f"must be between {lo} and {hi}; got {value}"
+
+    return check
+
+
+LOOPBACK_HOSTS = ("127.0.0.1", "::1", "localhost")
+"""Hosts that only this machine can reach."""
+
+
+@dataclass(frozen=True)
+class LiveConfig:
+    """The live trend page (``sensor.shell.live``): an HTTP server for people on the plant
+    network. Off unless ``enabled``; on loopback unless ``host`` says otherwise.
+
+    Logging in (``users_file``, the format of ``sensor.shell.opcua.users``) lets an operator
+    acknowledge and shelve alarms. A password must never travel in clear: with a users file, a
+    host other than loopback needs ``certificate`` and ``private_key`` (PEM; HTTPS).
+    """
+
+    enabled: bool = False
+    host: str = "127.0.0.1"
+    port: int = field(default=8730, metadata=check(_in_range(0, 65535)))
+    trend_hours: float = field(default=4.0, metadata=check(_in_range(0.1, 24.0)))
+    trend_points: int = field(default=720, metadata=check(_in_range(20, 5000)))
+    stale_after_s: float = field(default=60.0, metadata=check(positive))
+    session_minutes: float = field(default=480.0, metadata=check(_in_range(1.0, 1440.0)))
+    users_file: Path | None = None
+    certificate: Path | None = None
+    private_key: Path | None = None
+
+    def __post_init__(self) -> None:
+        if not self.host.strip():
+            raise Invalid("host", "must name an address to listen on, e.g. 127.0.0.1")
+        if (self.certificate is None) != (self.private_key is None):
+            raise Invalid("certificate", "certificate and private_key go together (HTTPS)")
+        in_clear = self.users_file is not None and self.certificate is None
+        if in_clear and self.host not in LOOPBACK_HOSTS:
+            raise Invalid(
+                "host",
+                f"{self.host!r} is reachable from other machines and users_file lets people "
+                "log in: give certificate and private_key (HTTPS) so that a password never "
+                "travels in clear, or listen on 127.0.0.1",
+            )
+
+
 @dataclass(frozen=True)
 class SiteConfig:
     """A whole site file, validated. ``path`` and ``sha256`` identify it in the audit trail."""
@@ -568,6 +615,7 @@ class SiteConfig:
     store: StoreConfig = StoreConfig()
     opcua: OpcUaConfig = OpcUaConfig()
     service: ServiceConfig = ServiceConfig()
+    live: LiveConfig = LiveConfig()
     simulator: dict[str, Any] | None = None
     path: Path = field(default=Path(), init=False)
     sha256: str = field(default="", init=False)

@@ -20,13 +20,15 @@ import tempfile
 from dataclasses import replace
 from pathlib import Path
 
-from PIL import Image
-
 from sensor.errors import SigmatrackError
 from sensor.shell.report.build import report_html, write_page
 from sensor.shell.report.sources import load_views
 
 REPO = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(REPO))
+
+from tests.docs.images import save_small_png  # noqa: E402
+
 SITE = REPO / "config" / "demo-site.toml"
 IMAGE = Path(__file__).with_name("report.png")
 WIDTH_PX, HEIGHT_PX = 1000, 2290
@@ -66,9 +68,7 @@ def main() -> None:
              f"--window-size={WIDTH_PX},{HEIGHT_PX}", f"--screenshot={shot}", page.as_uri()],
             check=True, capture_output=True, timeout=300,
         )  # fmt: skip
-        with Image.open(shot) as image:
-            palette = image.convert("RGB").quantize(colors=256, method=Image.Quantize.FASTOCTREE)
-            palette.save(IMAGE, optimize=True)
+        save_small_png(shot, IMAGE)
     print(f"wrote {IMAGE.relative_to(REPO)}")
 
 

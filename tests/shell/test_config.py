@@ -158,6 +158,29 @@ def test_every_key_is_documented_in_the_demo_site_file(cls):
             r"metastable\.fixed_width_k: needed when method = 'fixed-width'",
         ),
         ("[site]", "[site\n", r"demo-site\.toml: not valid TOML"),
+        ("port = 8730 ", "port = 70000 ", r"live\.port: must be between 0 and 65535; got 70000"),
+        ("trend_hours = 4.0 ", "trend_hours = 48.0 ", r"live\.trend_hours: must be between"),
+        (
+            'host = "127.0.0.1"                        # optional, "127.0.0.1"',
+            'host = "0.0.0.0"\nusers_file = "users"  #',
+            r"live\.host: '0\.0\.0\.0' is reachable from other machines and users_file lets "
+            r"people log in: give certificate and private_key \(HTTPS\)",
+        ),
+        (
+            'host = "127.0.0.1"                        # optional, "127.0.0.1"',
+            'host = "0.0.0.0"\nusers_file = "users"\ncertificate = "c.pem"\nprivate_key = "k.pem"#',
+            None,
+        ),
+        (
+            'host = "127.0.0.1"                        # optional, "127.0.0.1"',
+            'host = ""  #',
+            r"live\.host: must name an address",
+        ),
+        (
+            "port = 8730 ",
+            'certificate = "c.pem"\nport = 8730 ',
+            r"live\.certificate: certificate and private_key go together",
+        ),
     ],
 )
 def test_bad_site_files_are_refused(old, new, message):

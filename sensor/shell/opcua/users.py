@@ -134,6 +134,10 @@ class Users:
     def __init__(self, records: Mapping[str, UserRecord] | None = None) -> None:
         self._records = dict(records or {})
 
+    def __len__(self) -> int:
+        """How many users there are (none: nobody logs in)."""
+        return len(self._records)
+
     @classmethod
     def from_file(cls, file: Path | None) -> Users:
         return cls(None if file is None else load_users(file))

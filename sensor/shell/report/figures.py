@@ -26,13 +26,11 @@ from matplotlib.path import Path as MplPath
 import sensor.shell.report.style as style
 from sensor.metastable import MetastableZone
 from sensor.numerics import FloatArray
+from sensor.shell.report.curves import CONFIDENCE, zone_curves
 from sensor.shell.report.envelope import Envelope, EnvelopeCheck
 from sensor.shell.report.svg import RC_PARAMS, inline_svg
 from sensor.shell.report.view import BatchView
 from sensor.units import ZERO_CELSIUS_K
-
-CONFIDENCE = 0.95
-"""Level of the bands drawn (the solubility curve's by Student's t; the estimates' as 2 std)."""
 
 BAND_STD = 2.0
 """The estimates' bands, in standard deviations."""
@@ -132,16 +130,12 @@ def _temp_range(views: Sequence[BatchView], envelope: Envelope | None) -> tuple[
 def _draw_thermodynamics(
     ax: Axes, zone: MetastableZone, temp_lo_c: float, temp_hi_c: float, rate_k_per_s: float
 ) -> None:
-    curve = zone.solubility
-    temp_c = np.linspace(temp_lo_c, temp_hi_c, 240)
-    temp_k = temp_c + ZERO_CELSIUS_K
-    c_sat = curve.c_sat(temp_k)
-    lo, hi = curve.interval(temp_k, CONFIDENCE)
-    trusted = ~curve.extrapolated(temp_k)
+    lines = zone_curves(zone, temp_lo_c, temp_hi_c, rate_k_per_s)
+    temp_c, trusted = lines.temp_c, lines.trusted
     ax.fill_between(
         temp_c,
-        lo,
-        hi,
+        lines.c_sat_lo,
+        lines.c_sat_hi,
         color=style.GREY,
         alpha=style.BAND_ALPHA,
         linewidth=0,
@@ -149,24 +143,21 @@ def _draw_thermodynamics(
     )
     ax.plot(
         temp_c,
-        np.where(trusted, c_sat, np.nan),
+        np.where(trusted, lines.c_sat, np.nan),
         label="solubility curve",
         **style.SOLUBILITY.kwargs(),
     )
     if np.any(~trusted):
         ax.plot(
             temp_c,
-            np.where(trusted, np.nan, c_sat),
+            np.where(trusted, np.nan, lines.c_sat),
             label="solubility, extrapolated",
             **style.SOLUBILITY_EXTRAPOLATED.kwargs(),
         )
-    temp_in = temp_k[trusted]
-    if len(temp_in):
-        with np.errstate(invalid="ignore"):
-            c_limit = zone.c_limit(temp_in, rate_k_per_s)
+    if np.any(trusted):
         ax.plot(
-            temp_in - ZERO_CELSIUS_K,
-            c_limit,
+            temp_c[trusted],
+            lines.c_limit[trusted],
             label=f"metastable limit at {rate_k_per_s * 60.0:.2g} K/min",
             **style.METASTABLE_LIMIT.kwargs(),
         )

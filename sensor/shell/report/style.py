@@ -57,8 +57,38 @@ ESTIMATE = Line(BLUE, "-", 1.8)
 SIGMA_HIGH = Line(ORANGE, "-.", 1.3)
 JACKET = Line(BLUISH_GREEN, ":", 1.4)
 SETPOINT = Line(REDDISH_PURPLE, "--", 1.4)
+GUARD_SETPOINT = Line(SKY_BLUE, "-.", 1.6)
+"""The setpoint after the guard's limits (the live page; the reports show the proposal)."""
 ZERO = Line(GREY, "-", 0.6)
 ENVELOPE_EDGE = Line(BLACK, (0, (1, 1)), 0.8)
+
+
+DASH_PATTERNS: dict[str, tuple[float, ...]] = {
+    "-": (),
+    "--": (3.7, 1.6),
+    "-.": (6.4, 1.6, 1.0, 1.6),
+    ":": (1.0, 1.65),
+}
+"""matplotlib's named dash patterns, in line widths: its default rcParams
+``lines.dashed_pattern``, ``lines.dashdot_pattern`` and ``lines.dotted_pattern``, which it
+scales by the line width (``lines.scale_dashes``); a test compares them with matplotlib's."""
+
+
+def svg_dasharray(line: Line) -> str:
+    """The line's dash pattern as an SVG ``stroke-dasharray`` (lengths in px at the line's
+    width), so that a drawing made in a browser uses the reports' patterns; ``"none"`` for a
+    solid line.
+
+    >>> svg_dasharray(Line("#000000", "--", 2.0))
+    '7.4 3.2'
+    >>> svg_dasharray(Line("#000000", (0, (1, 1)), 1.0))
+    '1 1'
+    """
+    style = line.linestyle
+    pattern = DASH_PATTERNS[style] if isinstance(style, str) else style[1]
+    if not pattern:
+        return "none"
+    return " ".join(f"{length * line.linewidth:.3g}" for length in pattern)
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,1 @@
+"""Scripts that make README's images, and what they share."""
