@@ -31,7 +31,7 @@ from typing import TextIO
 import sensor
 from sensor.errors import SigmatrackError
 from sensor.shell.config import SiteConfig, load_site_file
-from sensor.shell.run_command import configure_logging, serve
+from sensor.shell.run_command import configure_logging, serve, with_live_port
 from sensor.shell.service.console import ConsoleView
 from sensor.shell.service.service import ServiceStatus, UnitStep
 from sensor.shell.store import Store, read_batch
@@ -78,6 +78,13 @@ def register(commands: argparse._SubParsersAction) -> None:
     parser.add_argument("--seed", type=int, default=7, metavar="N", help="the batch's seed")
     parser.add_argument(
         "--config", metavar="FILE", help=f"the site file (default: the demo's, {DEMO_SITE})"
+    )
+    parser.add_argument(
+        "--live-port",
+        type=int,
+        default=0,
+        metavar="PORT",
+        help="port of the live trend page on 127.0.0.1 (default 0: any free port; -1: none)",
     )
     parser.set_defaults(run=run_demo)
 
@@ -223,6 +230,7 @@ async def _run(
             site,
             plant_clock_speed=args.speed,
             listeners=(view, watch),
+            on_live=(lambda url: print(f"  live trend page: {url}", flush=True),),
             end_batches=True,
             stop=stop,
         )
@@ -252,6 +260,8 @@ def run_demo(args: argparse.Namespace) -> int:
     except OSError as error:
         raise DemoError(f"{out}: cannot make the folder ({error.strerror})") from None
     site = demo_site(load_site_file(config), out, args.speed)
+    if args.live_port >= 0:
+        site = with_live_port(with_changes(site, live={"host": "127.0.0.1"}), args.live_port)
     configure_logging("warning")
     print(f"sigmatrack demo: {site.site.name}, unit(s) {', '.join(u.id for u in site.unit)}")
     print(f"  plant (simulated, seed {args.seed}, {args.speed:g}x): {site.opcua.endpoint}")

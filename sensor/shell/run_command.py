@@ -10,9 +10,11 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import dataclasses
 import logging
 import signal
 import sys
+from collections.abc import Callable
 
 from sensor.errors import SigmatrackError
 from sensor.shell.config import SiteConfig, load_site_file
@@ -53,6 +55,13 @@ def register(commands: argparse._SubParsersAction) -> None:
         "(sigmatrack simulate --serve --speed X): follow its clock instead of this machine's",
     )
     parser.add_argument(
+        "--live-port",
+        type=int,
+        metavar="PORT",
+        help="serve the live trend page on this port for this run (live.enabled, live.port; "
+        "0: any free port)",
+    )
+    parser.add_argument(
         "--log-level",
         choices=("debug", "info", "warning", "error"),
         default="info",
@@ -66,6 +75,7 @@ async def serve(
     *,
     plant_clock_speed: float | None = None,
     listeners: tuple[StepListener, ...] = (),
+    on_live: tuple[Callable[[str], None], ...] = (),
     end_batches: bool = False,
     stop: asyncio.Event | None = None,
 ) -> ServiceStatus:
@@ -80,7 +90,9 @@ async def serve(
     loop = asyncio.get_running_loop()
     for signum in (signal.SIGINT, signal.SIGTERM):
         loop.add_signal_handler(signum, stop.set)
-    service = Service(site, plant_clock_speed=plant_clock_speed, listeners=listeners)
+    service = Service(
+        site, plant_clock_speed=plant_clock_speed, listeners=listeners, on_live=on_live
+    )
     try:
         return await service.run(stop, end_batches=end_batches)
     except OSError as error:
@@ -111,8 +123,21 @@ def configure_logging(level: str) -> None:
     logging.getLogger("asyncua").setLevel(logging.ERROR)
 
 
+def with_live_port(site: SiteConfig, port: int | None) -> SiteConfig:
+    """The site with the live page turned on at ``port`` (None: as the site file says)."""
+    if port is None:
+        return site
+    if not 0 <= port <= 65535:
+        raise ServiceStartError(f"--live-port must be 0 to 65535; got {port}")
+    live = dataclasses.replace(site.live, enabled=True, port=port)
+    changed = dataclasses.replace(site, live=live)
+    object.__setattr__(changed, "path", site.path)
+    object.__setattr__(changed, "sha256", site.sha256)
+    return changed
+
+
 def run_service(args: argparse.Namespace) -> int:
-    site = load_site_file(args.config)
+    site = with_live_port(load_site_file(args.config), args.live_port)
     configure_logging(args.log_level)
     if args.plant_clock_speed is not None and not args.plant_clock_speed > 0:
         raise ServiceStartError(

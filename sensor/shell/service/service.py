@@ -30,6 +30,9 @@ name), the batches as the DCS names them, the audit trail of this start (site fi
 fitted models) and each unit's checkpoint every ``service.checkpoint_interval_s``. The writer
 never blocks the tick (:class:`~sensor.shell.store.writer.StoreWriter`).
 
+**The live trend page** (``[live]``, off by default; ``--live-port``) is fed every step, as
+sigmatrack's OPC UA server is; its operators' actions go through the same handler.
+
 **A restart** resumes each unit from its latest stored checkpoint, if the DCS still runs that
 batch (:mod:`~sensor.shell.service.units`). **Stopping** (:meth:`Service.run` returns when its
 ``stop`` event is set) checkpoints every unit and flushes the store.
@@ -50,9 +53,10 @@ from collections import Counter
 from collections.abc import Awaitable, Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 from controller.alarm_set import crystallizer_alarms
-from controller.alarms import AlarmEvent
+from controller.alarms import AlarmDefinition, AlarmEvent
 from controller.errors import ControllerError
 from sensor.kalman import FilterError
 from sensor.pipeline import DcsInputs
@@ -79,6 +83,9 @@ from sensor.shell.store import (
     read_latest_checkpoint,
 )
 from sensor.softsensor import SampleOrderError
+
+if TYPE_CHECKING:
+    from sensor.shell.live.server import LivePage
 
 _log = logging.getLogger(__name__)
 
@@ -164,7 +171,8 @@ class Service:
     plant_clock_speed : follow a simulated plant's clock running this many times faster than
         the wall clock (:class:`~sensor.shell.service.clock.PlantClock`); None: the wall clock
     environ : where passwords named by the site file are looked up (default ``os.environ``)
-    listeners : called after every unit step (console view, live page)
+    listeners : called after every unit step (console view)
+    on_live : called with the live trend page's address once it listens (``live.enabled``)
     """
 
     def __init__(
@@ -174,6 +182,7 @@ class Service:
         plant_clock_speed: float | None = None,
         environ: Mapping[str, str] | None = None,
         listeners: Sequence[StepListener] = (),
+        on_live: Sequence[Callable[[str], None]] = (),
     ) -> None:
         self.site = site
         self.plant_clock_speed = plant_clock_speed
@@ -190,6 +199,8 @@ class Service:
             for index in range(len(site.unit))
         ]
         self._by_id = {unit.unit_id: unit for unit in self.units}
+        self.on_live = list(on_live)
+        self.live: LivePage | None = None
         self.plant: PlantClient | None = None
         self.server: AdvisorServer | None = None
         self.writer: StoreWriter | None = None
@@ -236,8 +247,14 @@ class Service:
             async with (
                 PlantClient(self.site, environ=self.environ) as plant,
                 AdvisorServer(self.site, alarms, self._operator_action) as server,
+                contextlib.AsyncExitStack() as optional,
             ):
                 self.plant, self.server = plant, server
+                if self.site.live.enabled:
+                    self.live = await optional.enter_async_context(self._live_page(alarms))
+                    _log.info("live trend page at %s", self.live.url)
+                    for listener in self.on_live:
+                        listener(self.live.url)
                 clock = self._clock(plant)
                 await self._schedule(clock, stop)
                 await self._finish_writes()
@@ -251,6 +268,18 @@ class Service:
             if not writer.close(CLOSE_TIMEOUT_S):
                 _log.error("the store did not take every row within %s s", CLOSE_TIMEOUT_S)
         return self.status()
+
+    def _live_page(self, alarms: Sequence[AlarmDefinition]) -> LivePage:
+        # imported here: the page's modules are needed only when it is served
+        from sensor.shell.live.server import LivePage, site_diagrams
+
+        return LivePage(
+            self.site.live,
+            site_diagrams(self.site, self.zone),
+            alarms,
+            self._operator_action,
+            title=self.site.site.name,
+        )
 
     def _clock(self, plant: PlantClient) -> Clock:
         if self.plant_clock_speed is None:
@@ -328,6 +357,8 @@ class Service:
         if snapshot.communication_lost:
             outputs = dataclasses.replace(outputs, proposal=None)  # withdrawn
         await server.publish(unit.unit_id, outputs)
+        if self.live is not None:
+            self.live.publish(unit.unit_id, outputs)
         self._put_many(step_rows(unit.unit_id, outputs))
         await self._write(unit, outputs)
         if unit.checkpoint_due(time_s):

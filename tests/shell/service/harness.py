@@ -70,10 +70,10 @@ def service_site(
     site: SiteConfig, plant_endpoint: str, store_url: str, schema: str | None, folder
 ) -> SiteConfig:
     """The demo site pointed at the test's plant endpoint and store, writing to the DCS, with
-    its own server on a free loopback port. The plant server's queue per tag is scaled to the
-    accelerated clock: the site's 10 values hold 10 s of a 1 s scan at real time, 0.2 s at 50x,
-    less than this shared machine's stalls (the writer's thread drains the durable queue
-    beside the event loop); 2,000 values hold 40 s of wall time."""
+    its own server and the live page on free loopback ports. The plant server's queue per
+    tag is scaled to the accelerated clock: the site's 10 values hold 10 s of a 1 s scan at
+    real time, 0.2 s at 50x, less than this shared machine's stalls (the writer's thread
+    drains the durable queue beside the event loop); 2,000 values hold 40 s of wall time."""
     return with_changes(
         site,
         store={"url": store_url, "schema": schema, "queue_dir": folder / "queue",
@@ -83,6 +83,7 @@ def service_site(
                "future_tolerance_s": 10.0, **FAST},
         opcua_server={"endpoint": f"opc.tcp://127.0.0.1:{free_port()}/sigmatrack"},
         service={"checkpoint_interval_s": 30.0},
+        live={"enabled": True, "port": 0},
     )  # fmt: skip
 
 

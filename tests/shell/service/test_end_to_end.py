@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import asyncio
 import math
+import urllib.request
 from datetime import UTC, datetime
 
 from sensor.shell.service.service import Service, UnitStep
@@ -34,9 +35,14 @@ DETECT_S = 3.0
 every second) [s]."""
 
 
-RESUBSCRIBE_S = 3.0
+RESUBSCRIBE_S = 5.0
 """Wall time within which a link back has its monitored items again (this machine is
 shared) [s]."""
+
+
+def _fetch(url: str) -> str:
+    with urllib.request.urlopen(url, timeout=10.0) as response:  # loopback only
+        return response.read().decode()
 
 
 def _lost(steps: list[UnitStep]) -> bool:
@@ -86,6 +92,9 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
         running = asyncio.create_task(service.run(stop))
         try:
             await wait_until(lambda: any(followed), 30.0, "the recipe following the advisor")
+            # the live trend page, fed by the same steps
+            page = await asyncio.to_thread(_fetch, service.live.url)
+            assert "CR-301" in page
             # the network cut for a stretch
             await asyncio.to_thread(link.cut)
             await wait_until(lambda: _lost(steps), DETECT_S + 2, "the cut noticed")
