@@ -32,8 +32,6 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import multiprocessing
-import statistics
 import sys
 import tempfile
 import time
@@ -44,12 +42,13 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from sensor.shell.config import load_site_file
 from sensor.shell.demo_command import with_changes
 from sensor.shell.service.service import Service, UnitStep
-from sensor.shell.store import Store, StoreWriter
-from sensor.shell.store.durable_queue import DurableQueue
-from tests.benchmarks.plant_link import many_units, plant_client, serve
+from sensor.shell.store import Store
+from tests.benchmarks.plant_link import _quantiles as quantiles
+from tests.benchmarks.plant_link import many_units, plant_client, served_units
 from tests.benchmarks.store import (
     rows_per_s,
     samples,
+    through_writer,
     write_batched,
     write_one_commit_per_row,
 )
@@ -89,21 +88,9 @@ def store_rates(folder: Path) -> tuple[float, float, float]:
     store.ensure_schema()
     single = rows_per_s(write_one_commit_per_row, store, samples(2_000, first=10**7))
     batched = rows_per_s(write_batched, store, samples(200_000, first=2 * 10**7))
-    rows = samples(200_000)
-    writer = StoreWriter(store, DurableQueue(folder / "queue", 10**7), batch_rows=1000).start()
-    start = time.perf_counter()
-    for row in rows:
-        writer.put(row)
-    writer.flush(600.0)
-    through = len(rows) / (time.perf_counter() - start)
-    writer.close()
+    through, _put_us = through_writer(store, folder / "queue", samples(200_000))
     store.dispose()
     return batched, through, single
-
-
-def _quantiles(values: list[float]) -> tuple[float, float]:
-    ordered = sorted(values)
-    return statistics.median(ordered), ordered[int(0.99 * (len(ordered) - 1))]
 
 
 def main() -> int:
@@ -124,21 +111,11 @@ def main() -> int:
         opcua_server={"endpoint": f"opc.tcp://127.0.0.1:{free_port()}/sigmatrack"},
         store={"url": f"sqlite:///{folder / 'service.db'}", "queue_dir": folder / "q"},
     )
-    context = multiprocessing.get_context("spawn")
-    ready, stop = context.Event(), context.Event()
-    child = context.Process(target=serve, args=(endpoint, args.units, ready, stop), daemon=True)
-    child.start()
-    try:
-        if not ready.wait(120.0):
-            print("the bench server did not start", file=sys.stderr)
-            return 1
+    with served_units(endpoint, args.units):
         base_share, _count, _ages = asyncio.run(plant_client(site, args.seconds))
         share, latencies, steps = asyncio.run(service_run(site, args.seconds))
-    finally:
-        stop.set()
-        child.join(30.0)
     batched, through, single = store_rates(folder)
-    median, p99 = _quantiles(latencies)
+    median, p99 = quantiles(latencies)
     print(f"{args.units} units at 1 s, 100 ms publishing, {args.seconds:g} s each")
     print(f"  plant client alone: {100 * base_share:.1f} % of a core")
     print(
