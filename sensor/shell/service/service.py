@@ -55,6 +55,8 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
+import sqlalchemy.exc
+
 from controller.alarm_set import crystallizer_alarms
 from controller.alarms import AlarmDefinition, AlarmEvent
 from controller.errors import ControllerError
@@ -75,13 +77,14 @@ from sensor.shell.sitemodels import fit_site_solubility, site_metastable_zone
 from sensor.shell.sitesensor import pipeline_setup
 from sensor.shell.store import (
     Store,
-    StoreError,
     StoreRow,
+    StoreUnavailableError,
     StoreWriter,
     WriterStatus,
     audit_rows,
     read_latest_checkpoint,
 )
+from sensor.shell.store.database import is_outage
 from sensor.softsensor import SampleOrderError
 
 if TYPE_CHECKING:
@@ -287,7 +290,9 @@ class Service:
         return PlantClock(lambda: plant.newest_source_s, self.plant_clock_speed)
 
     def _resume_units(self) -> None:
-        """Each unit's latest checkpoint from the store, where there is one."""
+        """Each unit's latest checkpoint from the store, where there is one. A database that
+        cannot be reached now is no reason not to start (the units start afresh, the rows
+        wait in the durable queue); one of another schema version is (StoreError)."""
         config = self.site.store
         try:
             with Store(config.url, schema=config.schema) as store:
@@ -296,8 +301,11 @@ class Service:
                     row = read_latest_checkpoint(store, unit.unit_id)
                     if row is not None:
                         unit.resume(row)
-        except StoreError as error:
-            _log.warning("no checkpoint could be read, every unit starts afresh: %s", error)
+        except (StoreUnavailableError, sqlalchemy.exc.DBAPIError) as error:
+            if isinstance(error, sqlalchemy.exc.DBAPIError) and not is_outage(error):
+                raise
+            first = str(error).strip().splitlines()[0] if str(error).strip() else repr(error)
+            _log.warning("no checkpoint could be read, every unit starts afresh: %s", first)
 
     async def _schedule(self, clock: Clock, stop: asyncio.Event) -> None:
         """Step each unit when its scan arrives, and at least once per tick, until ``stop``
