@@ -63,8 +63,9 @@ class PlantSample:
     Attributes
     ----------
     time_s : since the start of the batch [s]
-    readings : by signal name (``temp``, ``jacket_temp``, ``jacket_setpoint``, ``conc``,
-        ``phase``, ``batch_id``, ``permissive``, ``remote_setpoint``, ``heartbeat``); a signal
+    readings : by signal name (``temp``, ``jacket_temp``, ``jacket_setpoint``, ``setpoint``
+        (the recipe's working reactor setpoint, °C), ``conc``, ``phase``, ``batch_id``,
+        ``permissive``, ``remote_setpoint``, ``heartbeat``); a signal
         missing here reported nothing at this scan (between analyzer samples, a dropout). Only
         the signals the unit has tags for are present.
     """
@@ -445,6 +446,7 @@ class PlantSimulation:
             "temp": temp,
             "jacket_temp": jacket,
             "jacket_setpoint": Reading(round(self.jacket_setpoint_k - ZERO_CELSIUS_K, 3)),
+            "setpoint": Reading(round(self.recipe.setpoint_k - ZERO_CELSIUS_K, 3)),
             "conc": conc,
             "phase": Reading(self.unit.phase_values.get(decided.phase, decided.phase)),
             "batch_id": Reading(self.batch_id),

@@ -32,7 +32,8 @@ def test_doctests(name):
 
 def test_readme_gives_the_two_commands_and_ci_runs_the_test_one():
     lines = [line.strip() for line in README.splitlines()]
-    assert any(line.startswith("pip install -e . && sigmatrack ") for line in lines)
+    commands = [line for line in lines if line.startswith("pip install -e . && sigmatrack ")]
+    assert commands[0] == "pip install -e . && sigmatrack demo"  # the first thing to run
     assert TEST_COMMAND in lines
     ci = (REPO / ".ci" / "run").read_text(encoding="utf-8")
     assert TEST_COMMAND in ci

@@ -361,6 +361,21 @@ class StoreConfig:
             )
 
 
+@dataclass(frozen=True)
+class ServiceConfig:
+    """How ``sigmatrack run`` steps its units."""
+
+    tick_s: float = field(default=1.0, metadata=check(positive))
+    checkpoint_interval_s: float = field(default=60.0, metadata=check(positive))
+
+    def __post_init__(self) -> None:
+        if self.checkpoint_interval_s < self.tick_s:
+            raise Invalid(
+                "checkpoint_interval_s",
+                f"must be at least tick_s ({self.tick_s}); got {self.checkpoint_interval_s}",
+            )
+
+
 SecurityMode = Literal["none", "sign", "sign-and-encrypt"]
 """OPC UA message security modes (Part 4, MessageSecurityMode), as site files name them."""
 
@@ -599,6 +614,7 @@ class SiteConfig:
     alarms: AlarmsConfig = AlarmsConfig()
     store: StoreConfig = StoreConfig()
     opcua: OpcUaConfig = OpcUaConfig()
+    service: ServiceConfig = ServiceConfig()
     live: LiveConfig = LiveConfig()
     simulator: dict[str, Any] | None = None
     path: Path = field(default=Path(), init=False)

@@ -10,6 +10,7 @@ signal                    data type     notes
 ========================  ============  ==================================================
 temp, jacket_temp         Double, °C    AnalogItemType: EngineeringUnits, EURange
 jacket_setpoint           Double, °C    AnalogItemType
+setpoint                  Double, °C    AnalogItemType: the recipe's working reactor setpoint
 conc                      Double        AnalogItemType, the analyzer's ``conc_unit``; its
                                         StatusCode is Good, Uncertain or Bad
 phase                     Int32/String  the DCS's value (``unit.phase_values``)
@@ -50,7 +51,7 @@ from simulators.plant import PlantSimulation
 NAMESPACE_URI = "urn:sigmatrack:simulated-plant"
 INPUT_SIGNALS = ("permissive", "remote_setpoint", "heartbeat")
 """Signals the DCS receives from outside: the server reads them, never overwrites them."""
-ANALOG_SIGNALS = ("temp", "jacket_temp", "jacket_setpoint", "conc", "remote_setpoint")
+ANALOG_SIGNALS = ("temp", "jacket_temp", "jacket_setpoint", "setpoint", "conc", "remote_setpoint")
 LOOPBACK_HOSTS = ("127.0.0.1", "localhost", "::1")
 MIN_SPEED, MAX_SPEED = 1.0, 100_000.0
 CELSIUS_UNIT_ID = (ord("C") << 16) | (ord("E") << 8) | ord("L")
@@ -127,6 +128,7 @@ def _variant_types(unit: UnitConfig) -> dict[str, ua.VariantType]:
         "temp": double,
         "jacket_temp": double,
         "jacket_setpoint": double,
+        "setpoint": double,
         "conc": double,
         "remote_setpoint": double,
         "permissive": ua.VariantType.Boolean,
@@ -148,7 +150,7 @@ def _units_and_range(sim: PlantSimulation, signal: str) -> tuple[ua.EUInformatio
             Description=ua.LocalizedText(f"concentration in {name}"),
         )
         return info, ua.Range(low, high)
-    if signal in ("jacket_setpoint", "remote_setpoint"):
+    if signal in ("jacket_setpoint", "setpoint", "remote_setpoint"):
         low, high = sim.settings.thermal.jacket_setpoint_range_c
         if signal == "remote_setpoint":
             recipe = sim.settings.recipe

@@ -11,7 +11,7 @@ import argparse
 import asyncio
 import signal
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import TextIO
@@ -22,7 +22,7 @@ from simulators.errors import SimulatorError
 from simulators.faults import Fault, parse_fault_spec
 from simulators.kinetics import Mismatch
 from simulators.plant import PlantSimulation, seeded_mismatch
-from simulators.settings import parse_start_time
+from simulators.settings import SimulatorSettings, parse_start_time, read_simulator_settings
 from simulators.shell.historian import HistorianWriter, TruthWriter
 from simulators.shell.server import MAX_SPEED, MIN_SPEED, PlantServer
 
@@ -87,6 +87,12 @@ def register(commands: argparse._SubParsersAction) -> None:
     serve.add_argument(
         "--batches", type=int, metavar="N", help="stop after N batches per unit (default: never)"
     )
+    serve.add_argument(
+        "--permissive",
+        action="store_true",
+        help="the simulated operator grants the advisor's permissive from the start "
+        "(default: simulator.recipe.permissive); it stays writable over OPC UA",
+    )
     parser.set_defaults(run=run_simulate)
 
 
@@ -121,6 +127,7 @@ class _Request:
     start: datetime | None
     batch_id: str | None
     unit_ids: tuple[str | None, ...] = field(default=(None,))
+    settings: SimulatorSettings | None = None
 
 
 def _request(args: argparse.Namespace) -> _Request:
@@ -143,7 +150,11 @@ def _request(args: argparse.Namespace) -> _Request:
     else:
         units = (None,)
     faults = None if args.faults is None else parse_fault_spec(args.faults)
-    return _Request(site, args.seed, mismatch, faults, start, args.batch_id, units)
+    settings = None
+    if args.serve and args.permissive:
+        settings = read_simulator_settings(site)
+        settings = replace(settings, recipe=replace(settings.recipe, permissive=True))
+    return _Request(site, args.seed, mismatch, faults, start, args.batch_id, units, settings)
 
 
 def _build(
@@ -157,6 +168,7 @@ def _build(
         faults=request.faults,
         batch_id=batch_id,
         start=start,
+        settings=request.settings,
     )
 
 
@@ -254,6 +266,17 @@ def _print_summary(
     print(f"  {ADVISORY}")
 
 
+def serve_tick_s(scan_s: float, speed: float) -> float:
+    """Wall time between the server's updates [s]: one scan's worth of simulated time, so that
+    every scan is published, but at most 50 ms and at least 5 ms (faster than that the server
+    publishes only the latest of several scans).
+
+    >>> serve_tick_s(1.0, 1.0), serve_tick_s(1.0, 100.0), serve_tick_s(1.0, 1000.0)
+    (0.05, 0.01, 0.005)
+    """
+    return min(0.05, max(0.005, scan_s / speed))
+
+
 async def _serve(args: argparse.Namespace, request: _Request) -> int:
     sims = [
         _build(
@@ -279,6 +302,7 @@ async def _serve(args: argparse.Namespace, request: _Request) -> int:
         speed=args.speed,
         next_batch=next_batch,
         batches=args.batches,
+        tick_s=serve_tick_s(min(sim.dt_s for sim in sims), args.speed),
     )
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()

@@ -25,11 +25,13 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import dataclasses
 import multiprocessing
 import statistics
 import sys
 import time
+from collections.abc import Iterator
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -108,6 +110,22 @@ def serve(endpoint: str, count: int, ready, stop) -> None:
     asyncio.run(_serve(endpoint, count, ready, stop))
 
 
+@contextlib.contextmanager
+def served_units(endpoint: str, count: int) -> Iterator[None]:
+    """``count`` units served at ``endpoint`` by a child process, for the block's duration."""
+    context = multiprocessing.get_context("spawn")
+    ready, stop = context.Event(), context.Event()
+    child = context.Process(target=serve, args=(endpoint, count, ready, stop), daemon=True)
+    child.start()
+    try:
+        if not ready.wait(120.0):
+            raise RuntimeError("the bench server did not start")
+        yield
+    finally:
+        stop.set()
+        child.join(30.0)
+
+
 async def baseline(site: SiteConfig, seconds: float) -> tuple[float, int, list[float]]:
     nodes = [
         ua.NodeId.from_string(tag.node_id(site.opcua.node_id_format))
@@ -167,19 +185,9 @@ def main() -> int:
     args = parser.parse_args()
     endpoint = f"opc.tcp://127.0.0.1:{free_port()}/bench"
     site = with_opcua(many_units(load_site_file(DEMO_SITE), args.units), endpoint=endpoint)
-    context = multiprocessing.get_context("spawn")
-    ready, stop = context.Event(), context.Event()
-    child = context.Process(target=serve, args=(endpoint, args.units, ready, stop), daemon=True)
-    child.start()
-    try:
-        if not ready.wait(120.0):
-            print("the bench server did not start", file=sys.stderr)
-            return 1
+    with served_units(endpoint, args.units):
         base_share, base_count, base_ages = asyncio.run(baseline(site, args.seconds))
         share, count, ages = asyncio.run(plant_client(site, args.seconds))
-    finally:
-        stop.set()
-        child.join(30.0)
     ratio = share / base_share
     median, p99 = _quantiles(ages)
     base_median, base_p99 = _quantiles(base_ages)

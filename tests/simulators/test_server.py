@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import asyncio
+import contextlib
+import dataclasses
 import socket
 from datetime import timedelta
 
 import pytest
 from asyncua import Client, ua
 
+from sensor.shell.config import TagRef
 from simulators.errors import SimulatorError
 from simulators.faults import Fault
 from simulators.plant import PlantSimulation
@@ -63,16 +66,23 @@ async def _exercise(site, settings):
     bad = Fault("bad", at + 350.0, 80.0)
     plant = PlantSimulation.from_site(site, seed=4, settings=settings, faults=(bad,))
     plant.advance_to(at)
+    async with _served(site, plant, 40.0) as (client, server):
+        await _check_reads(client, plant, server)
+        await _check_remote(client, plant, settings)
+        await _check_bad_status(client, plant, bad)
+
+
+@contextlib.asynccontextmanager
+async def _served(site, plant, speed):
+    """The plant served on a free loopback port, its clock running, and a client of it."""
     endpoint = f"opc.tcp://127.0.0.1:{free_port()}/plant"
-    server = PlantServer(site, [plant], endpoint=endpoint, speed=40.0, tick_s=0.02)
+    server = PlantServer(site, [plant], endpoint=endpoint, speed=speed, tick_s=0.02)
     stop = asyncio.Event()
     async with server:
         runner = asyncio.create_task(server.run(stop))
         try:
             async with Client(endpoint, timeout=10) as client:
-                await _check_reads(client, plant, server)
-                await _check_remote(client, plant, settings)
-                await _check_bad_status(client, plant, bad)
+                yield client, server
         finally:
             stop.set()
             await runner
@@ -154,3 +164,24 @@ async def _check_bad_status(client, plant, bad):
     assert bad.start_s <= plant.time_s
     await _wait_for(lambda: _good(conc), 20.0, "the analyzer's recovery")
     assert plant.time_s >= bad.end_s
+
+
+def test_the_working_setpoint_is_served_where_the_site_file_tags_it(demo_site, short_settings):
+    asyncio.run(asyncio.wait_for(_exercise_setpoint(demo_site, short_settings), timeout=30.0))
+
+
+async def _exercise_setpoint(site, settings):
+    unit = site.unit[0]
+    tagged = dataclasses.replace(unit, tags={**unit.tags, "setpoint": TagRef("CR301.TIC3011.SP")})
+    site = dataclasses.replace(site, unit=(tagged,))
+    plant = _cooling_plant(site, settings, ())
+    async with _served(site, plant, 20.0) as (client, _server):
+        node = _node(client, "CR301.TIC3011.SP")
+        await _wait_for(lambda: _good(node), 10.0, "a first working setpoint")
+        value = await node.read_data_value(raise_on_bad_status=False)
+        assert value.Value.VariantType == ua.VariantType.Double
+        units = await (await node.get_child("0:EngineeringUnits")).read_value()
+        assert units.UnitId == CELSIUS_UNIT_ID
+        # the recipe's working setpoint, published to 1 mK, one scan behind at most (cooling
+        # at most 1 K/min: 1/60 K per 1 s scan)
+        assert value.Value.Value == pytest.approx(plant.truth().setpoint_c, abs=0.05)

@@ -105,6 +105,8 @@ FILTER_REFUSED = frozenset(
     {ua.StatusCodes.BadMonitoredItemFilterUnsupported, ua.StatusCodes.BadFilterNotAllowed}
 )
 WRITTEN_SIGNALS = ("remote_setpoint", "heartbeat")
+MEASURED_SIGNALS = frozenset({"temp", "jacket_temp", "conc"})
+"""The signals the plant's instruments stamp (source timestamps of the plant's own clock)."""
 DEFAULT_WRITE_TYPES = {"remote_setpoint": ua.VariantType.Double, "heartbeat": ua.VariantType.Int32}
 """The type written to a tag whose DataType is abstract (Number, Integer) and whose value is
 null; the server refuses it if it wants another (BadTypeMismatch, reported)."""
@@ -278,6 +280,8 @@ class PlantClient:
         self._problems: dict[str, deque[TagProblem]] = {unit_id: deque() for unit_id in ids}
         self._logged: dict[tuple[str, str, str], tuple[float, int]] = {}
         self._status = ConnectionStatus(ConnectionState.STARTING, time.time())
+        self._newest_source_s: float | None = None
+        self._arrivals: set[str] = set()
         self._client: Client | None = None
         self._pending: set[asyncio.Task] = set()
         self._lost_reason = ""
@@ -524,6 +528,13 @@ class PlantClient:
         self._keep(problem)
         if value is None:
             return
+        measured = track.spec.signal in MEASURED_SIGNALS
+        if track.spec.signal == "temp":
+            self._arrivals.add(track.spec.unit_id)
+        if measured and (
+            self._newest_source_s is None or value.source_time_s > self._newest_source_s
+        ):
+            self._newest_source_s = value.source_time_s
         if len(self._updates) >= self.config.notification_queue_max:
             self._updates.popleft()
             self._status = dataclasses.replace(
@@ -541,6 +552,19 @@ class PlantClient:
                 else datetime.fromtimestamp(value.server_time_s, UTC),
             )
         )
+
+    @property
+    def newest_source_s(self) -> float | None:
+        """The newest source timestamp of a measured value (:data:`MEASURED_SIGNALS`) accepted
+        so far [s since the Unix epoch]: a simulated plant's clock
+        (:class:`~sensor.shell.service.clock.PlantClock`). The tags others write (permissive,
+        remote setpoint, heartbeat) carry the writer's clock, so they do not count."""
+        return self._newest_source_s
+
+    def take_arrivals(self) -> set[str]:
+        """The units whose reactor temperature (their scan) arrived since the last call."""
+        arrivals, self._arrivals = self._arrivals, set()
+        return arrivals
 
     def take_updates(self) -> list[TagUpdate]:
         """Every value accepted since the last call, oldest first (for the store)."""

@@ -20,12 +20,14 @@ from sensor.shell.store.reader import (
     list_batches,
     read_audit,
     read_batch,
+    read_latest_checkpoint,
     read_site_file,
 )
 from sensor.shell.store.rows import (
     AlarmEventRow,
     AuditRow,
     BatchRow,
+    CheckpointRow,
     EstimateRow,
     ProposalRow,
     SampleRow,
@@ -41,6 +43,7 @@ __all__ = [
     "AuditRow",
     "BatchRecord",
     "BatchRow",
+    "CheckpointRow",
     "EstimateRow",
     "ProposalRow",
     "RowError",
@@ -59,6 +62,7 @@ __all__ = [
     "list_batches",
     "read_audit",
     "read_batch",
+    "read_latest_checkpoint",
     "read_site_file",
     "site_file_row",
 ]

@@ -29,6 +29,7 @@ from sensor.shell.store.rows import (
     AlarmEventRow,
     AuditRow,
     BatchRow,
+    CheckpointRow,
     EstimateRow,
     ProposalRow,
     SampleRow,
@@ -242,3 +243,28 @@ def read_site_file(store: Store, sha256: str) -> SiteFileRow:
     if not found:
         raise StoreError(store.url, f"no site file with sha256 {sha256}")
     return found[0]
+
+
+def read_latest_checkpoint(store: Store, unit_id: str) -> CheckpointRow | None:
+    """The unit's most recent checkpoint, or None if it has none (a first start).
+
+    Raises
+    ------
+    StoreError
+        As :func:`find_batch`; :class:`StoreUnavailableError` if the database cannot be read.
+    """
+    _check_readable(store)
+    spec = TABLE_SPECS[CheckpointRow]
+    table = spec.table
+    query = (
+        select(*(table.c[c] for c in spec.columns))
+        .where(table.c.unit_id == unit_id)
+        .order_by(table.c.time_us.desc())
+        .limit(1)
+    )
+    try:
+        with store.engine.connect() as conn:
+            found = conn.execute(query).first()
+    except exc.DBAPIError as error:
+        raise StoreUnavailableError(store.url, f"cannot be read ({_first_line(error)})") from None
+    return None if found is None else spec.row(tuple(found))  # type: ignore[return-value]

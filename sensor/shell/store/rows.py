@@ -29,6 +29,7 @@ ProposalRow        proposals        unit_id, time
 AlarmEventRow      alarm_events     unit_id, alarm, time, event
 AuditRow           audit            time, subject
 SiteFileRow        site_files       sha256
+CheckpointRow      checkpoints      unit_id, time
 =================  ===============  ==================================================
 """
 
@@ -381,6 +382,27 @@ class SiteFileRow(StoreRow):
         return cls(hashlib.sha256(text.encode()).hexdigest(), path, text)
 
 
+@dataclass(frozen=True, slots=True)
+class CheckpointRow(StoreRow):
+    """A unit's whole state at one step, from which the service resumes after a restart.
+
+    Parameters
+    ----------
+    unit_id : the unit's id
+    time : the step the state is of
+    state : the unit pipeline's checkpoint, as JSON text
+    batch_id : the DCS's batch identifier at that step, where known
+    """
+
+    TABLE: ClassVar[str] = "checkpoints"
+    KEY: ClassVar[tuple[str, ...]] = ("unit_id", "time")
+
+    unit_id: str
+    time: datetime
+    state: str
+    batch_id: str | None = None
+
+
 ROW_TYPES: tuple[type[StoreRow], ...] = (
     BatchRow,
     SampleRow,
@@ -389,6 +411,7 @@ ROW_TYPES: tuple[type[StoreRow], ...] = (
     AlarmEventRow,
     AuditRow,
     SiteFileRow,
+    CheckpointRow,
 )
 """Every row type, in the order their tables are created."""
 

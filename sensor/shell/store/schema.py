@@ -35,6 +35,7 @@ from sensor.shell.store.rows import (
     ROW_TYPES,
     AuditRow,
     BatchRow,
+    CheckpointRow,
     FieldPlan,
     Kind,
     SiteFileRow,
@@ -43,7 +44,7 @@ from sensor.shell.store.rows import (
     from_epoch_us,
 )
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 """Version of the table layout. Change it with every change of a row type's fields (a test
 holds the layout of each version)."""
 
@@ -65,7 +66,7 @@ _SQL_TYPES: Mapping[Kind, type[TypeEngine[Any]]] = {
     "flags": SqlText,
 }
 
-_LARGE_ROWS = (SiteFileRow, AuditRow)
+_LARGE_ROWS = (SiteFileRow, AuditRow, CheckpointRow)
 """Rows that can be many kB (texts): kept in ordinary rowid tables on SQLite."""
 
 UPSERT_FIELDS: Mapping[type[StoreRow], tuple[str, ...]] = {BatchRow: ("end", "site_sha256")}

@@ -11,6 +11,7 @@ from asyncua import ua
 
 from sensor.shell.store import (
     BatchRow,
+    CheckpointRow,
     SampleRow,
     Store,
     StoreError,
@@ -18,6 +19,7 @@ from sensor.shell.store import (
     find_batch,
     list_batches,
     read_batch,
+    read_latest_checkpoint,
     read_site_file,
 )
 from sensor.shell.store.rows import epoch_us
@@ -120,3 +122,16 @@ def test_reading_an_empty_schema_or_a_closed_port_is_refused(postgres):
     closed = postgres.via_port(free_port())
     with closed.store() as store, pytest.raises(StoreUnavailableError, match=r"cannot be read"):
         list_batches(store)
+
+
+def test_the_latest_checkpoint_of_a_unit_is_the_one_read_back(backend):
+    store = backend.store()
+    write_rows(store, [BatchRow("CR-301", "B1", T0)])
+    assert read_latest_checkpoint(store, "CR-301") is None  # a first start
+    rows = [
+        CheckpointRow("CR-301", T0 + timedelta(minutes=m), f'{{"minute": {m}}}', "B1")
+        for m in (2, 9, 5)
+    ]
+    write_rows(store, [*rows, CheckpointRow("CR-302", T0 + HOUR, "{}")])
+    assert read_latest_checkpoint(store, "CR-301") == rows[1]
+    assert read_latest_checkpoint(store, "CR-302").batch_id is None

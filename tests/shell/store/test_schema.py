@@ -17,7 +17,7 @@ from sensor.shell.store.schema import (
 )
 from tests.shell.store.conftest import T0, estimate_row, sample_rows
 
-LAYOUT_V1 = {
+LAYOUT_V2 = {
     "alarm_events": (
         ("unit_id", "alarm", "time_us", "event"),
         "unit_id TEXT!, alarm TEXT!, time_us BIGINT!, event TEXT!, state TEXT!, priority TEXT!, "
@@ -30,6 +30,10 @@ LAYOUT_V1 = {
     "batches": (
         ("unit_id", "batch_id"),
         "unit_id TEXT!, batch_id TEXT!, start_us BIGINT!, end_us BIGINT, site_sha256 TEXT",
+    ),
+    "checkpoints": (
+        ("unit_id", "time_us"),
+        "unit_id TEXT!, time_us BIGINT!, state TEXT!, batch_id TEXT",
     ),
     "estimates": (
         ("unit_id", "time_us"),
@@ -53,13 +57,13 @@ LAYOUT_V1 = {
     "site_files": (("sha256",), "sha256 TEXT!, path TEXT!, text TEXT!"),
     "store_meta": (("key",), "key TEXT!, value TEXT!"),
 }
-"""The layout of schema version 1 ("!" = NOT NULL). Changing a row type's fields changes it:
-then raise SCHEMA_VERSION and add the new layout here, so that no database is ever written
-with a layout its version does not describe."""
+"""The layout of schema version 2 ("!" = NOT NULL; version 1 had no ``checkpoints``).
+Changing a row type's fields changes it: then raise SCHEMA_VERSION and add the new layout
+here, so that no database is ever written with a layout its version does not describe."""
 
 
 def test_layout_is_the_one_of_its_schema_version():
-    assert SCHEMA_VERSION == 1
+    assert SCHEMA_VERSION == 2
     dialect = postgresql.dialect()
     layout = {
         table.name: (
@@ -71,7 +75,7 @@ def test_layout_is_the_one_of_its_schema_version():
         )
         for table in metadata.sorted_tables
     }
-    assert layout == LAYOUT_V1
+    assert layout == LAYOUT_V2
 
 
 def test_values_round_trip_and_nan_becomes_null(rng):
