@@ -512,9 +512,10 @@ class CrystallizerFilter:
             else:
                 self._ekf.Q = q
                 self._ekf.predict_model(dt, jacket_temp_k)
-        except np.linalg.LinAlgError:
+        except (np.linalg.LinAlgError, ValueError):
+            # ValueError: scipy's Cholesky refuses a covariance holding NaN or infinity
             raise FilterError(
-                f"t = {time_s:.1f} s: the covariance is not positive-definite"
+                f"t = {time_s:.1f} s: the covariance is not positive-definite or not finite"
             ) from None
         x, P = self._get()
         self._set(x, 0.5 * (P + P.T))
@@ -530,7 +531,9 @@ class CrystallizerFilter:
         if self._ukf is not None:
             self._ukf.sigmas_f = self._ukf.points_fn.sigma_points(self._ukf.x, self._ukf.P)
 
-    def _update(self, z: float, channel: Literal["temp", "conc"], force: bool) -> UpdateInfo:
+    def _update(
+        self, z: float, channel: Literal["temp", "conc"], force: bool, time_s: float
+    ) -> UpdateInfo:
         x, P = self._get()
         h = self._h_temp if channel == "temp" else self._h_conc
         r = self._r_temp if channel == "temp" else self._r_conc
@@ -540,11 +543,17 @@ class CrystallizerFilter:
         if nis > self._gate and not force:
             return UpdateInfo(innovation, var, nis, gated=True)
         zv = np.array([z])
-        if self._ukf is not None:
-            hx = self._hx_temp if channel == "temp" else self._hx_conc
-            self._ukf.update(zv, R=r, hx=hx)
-        else:
-            self._ekf.update(zv, HJacobian=lambda _x: h, Hx=lambda s: h @ s, R=r)
+        try:
+            if self._ukf is not None:
+                hx = self._hx_temp if channel == "temp" else self._hx_conc
+                self._ukf.update(zv, R=r, hx=hx)
+            else:
+                self._ekf.update(zv, HJacobian=lambda _x: h, Hx=lambda s: h @ s, R=r)
+        except (np.linalg.LinAlgError, ValueError):
+            # ValueError: scipy's inverse refuses an innovation covariance holding NaN
+            raise FilterError(
+                f"t = {time_s:.1f} s: the {channel} update met a singular or non-finite covariance"
+            ) from None
         x, P = self._get()
         self._set(x, 0.5 * (P + P.T))
         return UpdateInfo(innovation, var, nis, gated=False)
@@ -558,11 +567,11 @@ class CrystallizerFilter:
             self._seed()
         info = None
         if not math.isnan(event.temp_k):
-            info = self._update(event.temp_k, "temp", force=False)
+            info = self._update(event.temp_k, "temp", force=False, time_s=event.time_s)
         if not math.isnan(event.conc):
-            self._update(event.conc, "conc", force=True)
+            self._update(event.conc, "conc", force=True, time_s=event.time_s)
         x, P = self._get()
-        if not np.all(np.isfinite(x)):
+        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(P))):
             raise FilterError(f"t = {event.time_s:.1f} s: the state is not finite")
         event.x, event.P = x.copy(), P.copy()
         return info
@@ -607,7 +616,7 @@ class CrystallizerFilter:
             self._set(x, P)
             self._redraw()
             widened = True
-        info = self._update(conc_measured, "conc", force=force)
+        info = self._update(conc_measured, "conc", force=force, time_s=time_s)
         self._gated_run = self._gated_run + 1 if info.gated else 0
         if info.gated:
             return info

@@ -176,3 +176,18 @@ def test_tuning_refuses_bad_values():
         FilterTuning(temp_process_std=0.0)
     with pytest.raises(ValueError, match="gate_probability must be in"):
         FilterTuning(gate_probability=1.0)
+
+
+@pytest.mark.parametrize("kind", ["ukf", "ekf"])
+def test_a_covariance_gone_non_finite_is_a_filter_error_naming_the_time(kind):
+    # A breakdown must reach the caller as FilterError (the service restarts the unit on it),
+    # never as scipy's plain ValueError about NaN in a Cholesky factorisation.
+    from sensor.kalman import FilterError
+
+    f = _clear_solution_filter(kind)
+    f.start(0.0, 320.0, 0.30, JACKET_K)
+    state = f.checkpoint()
+    state["events"][-1]["P"] = [["nan"] * len(row) for row in state["events"][-1]["P"]]
+    f.restore(state)
+    with pytest.raises(FilterError, match=r"t = 10\.0 s"):
+        f.advance(10.0, JACKET_K, 320.0)
