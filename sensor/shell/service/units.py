@@ -83,17 +83,7 @@ class UnitRunner:
         ends, the new one starts). A checkpoint of another batch is given up."""
         if batch_id is None or batch_id == self.batch_id:
             return []
-        rows: list[StoreRow] = []
-        if self.batch_id is not None and self.batch_start_s is not None:
-            rows.append(
-                BatchRow(
-                    self.unit_id,
-                    self.batch_id,
-                    when(self.batch_start_s),
-                    when(time_s),
-                    self.site_sha256,
-                )
-            )
+        rows = self.end_batch(time_s)
         if self.resumed and self.restored_batch_id not in (None, batch_id):
             self.restart(
                 f"the DCS runs batch {batch_id}, the checkpoint was of batch "
