@@ -471,7 +471,10 @@ def filter_batch(
                 if code == 0:
                     accepted[signal] = values[signal, k]
                     accepted_at[signal] = t
-        if seeded_phase[k] == PHASE_NOT_ESTIMATING and count > 0:
+        # a gap in the samples longer than the temperature's staleness limit: SoftSensor's
+        # restart (the model's forecast over the gap went unchecked)
+        gap = k > 0 and t - time_s[k - 1] > s.rules[SIGNAL_TEMP, R_STALE]
+        if (seeded_phase[k] == PHASE_NOT_ESTIMATING or gap) and count > 0:
             count, base, seeded, gated_run = 0, 0, False, 0  # SoftSensor's reset
         entering_seed = not seeded and seeded_phase[k] == PHASE_SEEDED and s.seed_load > 0.0
         nis = math.nan
@@ -480,7 +483,8 @@ def filter_batch(
         jacket = accepted[SIGNAL_JACKET]
         if not started:
             if (
-                seeded_phase[k] != PHASE_NOT_ESTIMATING
+                not gap
+                and seeded_phase[k] != PHASE_NOT_ESTIMATING
                 and reasons[SIGNAL_TEMP] == 0
                 and reasons[SIGNAL_CONC] == 0
                 and not math.isnan(jacket)

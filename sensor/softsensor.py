@@ -8,7 +8,11 @@ once and is tested to agree with it.
 
 The model assumes a clear solution until seeding: in a phase outside ``estimating_phases``
 (heating an undissolved charge, say) the filter stops and reports nothing, and it starts afresh
-in the next estimating phase.
+in the next estimating phase. A gap between two samples longer than the reactor temperature's
+staleness limit (``stale_after_s``) stops it too: its forecast over the gap went unchecked, and
+readings far from that forecast would be gated as outliers for good. It starts afresh from the
+next sample after the gap with accepted temperature and analyzer readings (the seed, in a seeded
+phase, is added again: the crystals' size distribution restarts from the seed's).
 
 Order within a sample: readings are validated; the jacket temperature held as the model's input
 is the last accepted one; the filter starts at the first sample with accepted reactor temperature,
@@ -234,6 +238,7 @@ class SoftSensor:
             raise SampleOrderError(
                 f"sample at t = {t} s is not after the previous one (t = {self._last_time} s)"
             )
+        gap = math.isfinite(self._last_time) and t - self._last_time > self._temp.stale_after_s
         self._last_time = t
         temp = self._temp.check(t, sample.temp)
         jacket = self._jacket.check(t, sample.jacket_temp)
@@ -243,7 +248,9 @@ class SoftSensor:
             or self.setup.estimating_phases is None
             or sample.phase in self.setup.estimating_phases
         )
-        if not estimating and self.filter.started:
+        if (not estimating or gap) and self.filter.started:
+            # a gap longer than the temperature's staleness limit also restarts the filter:
+            # its forecast over the gap went unchecked, and readings far from it would be gated
             self._reset()
         entering_seed = (
             not self._seeded
@@ -256,6 +263,7 @@ class SoftSensor:
         started = self.filter.started
         if (
             not started
+            and not gap
             and estimating
             and temp == conc == Reason.ACCEPTED
             and not math.isnan(self._jacket.value)
@@ -306,7 +314,8 @@ class SoftSensor:
         )
 
     def _reset(self) -> None:
-        """Stop the filter (the phase left the model's validity); validation state stays."""
+        """Stop the filter (the phase left the model's validity, or a gap in the samples);
+        validation state stays."""
         setup = self.setup
         self.filter = CrystallizerFilter(
             setup.model, setup.tuning, setup.measurements, setup.seed_zeta

@@ -16,6 +16,7 @@ from sensor.batchfilter import (
     run_batches,
     run_per_sample,
 )
+from sensor.crystallizer import TEMP
 from sensor.samples import Sample
 from tests.synthetic import cooling_batch, demo_setup, with_faults
 
@@ -56,20 +57,45 @@ def test_kernel_agrees_with_filterpy_path(case, rng):
         batches.append(BatchArrays.from_samples(samples, setup))
     fused = run_batches(setup, batches)
     for arrays, kernel in zip(batches, fused, strict=True):
-        reference = run_per_sample(setup, arrays)
-        assert not isinstance(kernel, Exception)
-        assert not isinstance(reference, Exception)
-        np.testing.assert_array_equal(kernel.reasons, reference.reasons)
-        np.testing.assert_array_equal(kernel.flags, reference.flags)
-        started = (kernel.flags & FLAG_STARTED) != 0
+        started = _assert_agree(kernel, run_per_sample(setup, arrays))
         assert started.mean() > 0.9
-        # "agrees to 1e-9 in every state": absolute, on states of order 1e-3 to 300
-        np.testing.assert_allclose(kernel.x[started], reference.x[started], rtol=0, atol=1e-9)
-        np.testing.assert_allclose(kernel.var[started], reference.var[started], rtol=1e-7)
-        np.testing.assert_allclose(
-            kernel.cov_temp_conc[started], reference.cov_temp_conc[started], rtol=1e-6, atol=1e-18
-        )
-        np.testing.assert_allclose(kernel.conc_nis, reference.conc_nis, rtol=1e-7)
+
+
+def _assert_agree(kernel, reference) -> np.ndarray:
+    """The kernel's output equals the filterpy path's; returns where the filter ran."""
+    assert not isinstance(kernel, Exception)
+    assert not isinstance(reference, Exception)
+    np.testing.assert_array_equal(kernel.reasons, reference.reasons)
+    np.testing.assert_array_equal(kernel.flags, reference.flags)
+    started = (kernel.flags & FLAG_STARTED) != 0
+    # "agrees to 1e-9 in every state": absolute, on states of order 1e-3 to 300
+    np.testing.assert_allclose(kernel.x[started], reference.x[started], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(kernel.var[started], reference.var[started], rtol=1e-7)
+    np.testing.assert_allclose(
+        kernel.cov_temp_conc[started], reference.cov_temp_conc[started], rtol=1e-6, atol=1e-18
+    )
+    np.testing.assert_allclose(kernel.conc_nis, reference.conc_nis, rtol=1e-7)
+    return started
+
+
+def test_a_gap_in_the_samples_restarts_the_filter_in_both_paths(rng):
+    # A service that stalls (or a historian hole) leaves the model's forecast unchecked over the
+    # gap; readings far from it would then be gated for good. A gap longer than the
+    # temperature's staleness limit restarts the filter from the next readings, in both paths.
+    setup = demo_setup()
+    batch = cooling_batch(setup, rng, hours=0.75, bias=0.002, seed_at_s=600.0)
+    samples = list(batch.samples)
+    stale = setup.temp_rules.stale_after_s
+    gap_end = next(k for k, s in enumerate(samples) if s.time_s > samples[1200].time_s + 2 * stale)
+    samples = samples[:1200] + samples[gap_end:]
+    arrays = BatchArrays.from_samples(samples, setup)
+    (kernel,) = run_batches(setup, [arrays])
+    started = _assert_agree(kernel, run_per_sample(setup, arrays))
+    assert started[1199]
+    assert not started[1200]  # stopped at the gap
+    restart = 1200 + int(np.argmax(started[1200:]))
+    assert restart - 1200 < 60  # and started again at the next analyzer value
+    assert kernel.x[restart, TEMP] == pytest.approx(samples[restart].temp.value, abs=1e-9)
 
 
 def test_kernel_threads_give_the_same_answer(rng):
