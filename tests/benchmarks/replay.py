@@ -172,7 +172,7 @@ def main() -> int:
         f"events per sample with the analyzer every 10 s and {delay:g} s delay re-filtered, so "
         f"{events * per_event * 1e6:.1f} us per sample of filtering; the rest "
         f"{max(kernel_s / samples - events * per_event, 0.0) * 1e6:.1f} us is validation, "
-        "history and recording"
+        "history and storing the outputs"
     )
     missed = []
     if engine_rate / loop_rate < SPEED_TARGET:

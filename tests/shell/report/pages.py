@@ -58,13 +58,14 @@ def parse(page: str) -> Structure:
 def external_references(page: str) -> list[str]:
     """Everything in ``page`` that would make a browser fetch something: URLs with a scheme
     (http, https, ftp, file, data is allowed only for nothing), ``<link>``, ``<script>``,
-    ``<img>``, ``<iframe>``, ``<object>``, ``<embed>``, ``src=`` and ``srcset=`` attributes,
+    ``<img>``, ``<iframe>``, ``<object>``, ``<embed>``, ``src=``, ``srcset=`` and ``poster=``
+    attributes (what any media element fetches through),
     CSS ``@import`` and ``url(...)`` other than to an element of the page (``url(#id)``), and
     ``href`` other than to an element of the page (``#id``)."""
     found = []
     found += re.findall(r"(?i)\b(?:https?|ftp|file|data):[^\s\"'<>)]*", page)
-    found += re.findall(r"(?i)<(?:link|script|img|iframe|object|embed|audio|video)\b", page)
-    found += re.findall(r"(?i)\b(?:src|srcset)\s*=", page)
+    found += re.findall(r"(?i)<(?:link|script|img|iframe|object|embed)\b", page)
+    found += re.findall(r"(?i)\b(?:src|srcset|poster)\s*=", page)
     found += re.findall(r"(?i)@import", page)
     found += [u for u in re.findall(r"(?i)url\(\s*([^)]*)\)", page) if not u.startswith("#")]
     found += [

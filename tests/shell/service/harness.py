@@ -28,7 +28,7 @@ FAST = {"reconnect_initial_s": 0.2, "reconnect_max_s": 0.8}
 """Backoff for these tests: 0.2, 0.4, 0.8, 0.8, ... s (wall)."""
 
 
-class RecordingPlant(PlantServer):
+class NotingPlant(PlantServer):
     """The simulated plant's OPC UA server, noting every value it publishes in ``published``
     (shared between a server and the one restarted after it)."""
 
@@ -45,11 +45,11 @@ class RecordingPlant(PlantServer):
 
 
 class Served:
-    """A recording plant served on loopback, with its update loop running."""
+    """A noting plant (every published value kept) served on loopback, with its update loop running."""
 
     def __init__(self, site: SiteConfig, sim: PlantSimulation, endpoint: str, speed: float,
                  published: list) -> None:  # fmt: skip
-        self.server = RecordingPlant(
+        self.server = NotingPlant(
             site, [sim], endpoint=endpoint, speed=speed, tick_s=0.01, published=published
         )
         self.stop = asyncio.Event()
