@@ -45,7 +45,7 @@ class NotingPlant(PlantServer):
 
 
 class Served:
-    """A noting plant (every published value kept) served on loopback, with its update loop running."""
+    """A noting plant (every published value kept) served on loopback, its update loop running."""
 
     def __init__(self, site: SiteConfig, sim: PlantSimulation, endpoint: str, speed: float,
                  published: list) -> None:  # fmt: skip
