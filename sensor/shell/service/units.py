@@ -11,7 +11,9 @@ from __future__ import annotations
 import asyncio
 import json
 import logging
+import math
 from dataclasses import dataclass, field
+from datetime import datetime
 
 from controller.errors import ControllerError
 from sensor.pipeline import PipelineSetup, UnitPipeline
@@ -53,9 +55,9 @@ class UnitRunner:
     def unit_id(self) -> str:
         return self.setup.unit_id
 
-    def resume(self, row: CheckpointRow) -> bool:
-        """Take up the state of a stored checkpoint; False (and a warning) if it cannot be
-        used."""
+    def resume(self, row: CheckpointRow, batch_start: datetime | None = None) -> bool:
+        """Take up the state of a stored checkpoint, and the batch it was taken in (started at
+        ``batch_start``, as stored); False (and a warning) if it cannot be used."""
         try:
             self.pipeline = UnitPipeline.restore(self.setup, json.loads(row.state))
         except (ControllerError, ValueError, KeyError, TypeError) as error:
@@ -69,6 +71,9 @@ class UnitRunner:
         self.restored_batch_id = row.batch_id
         self.resumed = True
         self.last_checkpoint_s = row.time.timestamp()
+        if row.batch_id is not None and batch_start is not None:
+            self.batch_id = row.batch_id
+            self.batch_start_s = batch_start.timestamp()
         _log.info("%s: resumed from the checkpoint of %s", self.unit_id, row.time.isoformat())
         return True
 
@@ -80,10 +85,12 @@ class UnitRunner:
 
     def track_batch(self, batch_id: str | None, time_s: float) -> list[StoreRow]:
         """Follow the DCS's batch id; the batch rows to store when it changes (the old batch
-        ends, the new one starts). A checkpoint of another batch is given up."""
+        ends at the unit's last step in it, the new one starts now). A checkpoint of another
+        batch than the DCS's is given up."""
         if batch_id is None or batch_id == self.batch_id:
             return []
-        rows = self.end_batch(time_s)
+        last_s = self.last_time_s if math.isfinite(self.last_time_s) else self.last_checkpoint_s
+        rows = self.end_batch(last_s) if math.isfinite(last_s) else []
         if self.resumed and self.restored_batch_id not in (None, batch_id):
             self.restart(
                 f"the DCS runs batch {batch_id}, the checkpoint was of batch "
@@ -104,7 +111,7 @@ class UnitRunner:
                 self.unit_id,
                 self.batch_id,
                 when(self.batch_start_s),
-                when(time_s),
+                when(max(time_s, self.batch_start_s)),
                 self.site_sha256,
             )
         ]
