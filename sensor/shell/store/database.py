@@ -23,6 +23,7 @@ error's SQLSTATE class.
 
 from __future__ import annotations
 
+import logging
 import sqlite3
 from collections.abc import Sequence
 from typing import Any
@@ -45,7 +46,15 @@ from sqlalchemy.sql.dml import Insert
 
 from sensor.shell.config import SQL_SCHEMA_NAME
 from sensor.shell.store.errors import StoreError
-from sensor.shell.store.schema import SCHEMA_VERSION, TableSpec, metadata, store_meta
+from sensor.shell.store.schema import (
+    ADDED_TABLES,
+    SCHEMA_VERSION,
+    TableSpec,
+    metadata,
+    store_meta,
+)
+
+_log = logging.getLogger(__name__)
 
 SQLITE_BUSY_TIMEOUT_S = 2.0
 """How long a SQLite write waits for another connection's lock before it counts as an outage."""
@@ -207,12 +216,39 @@ class Store:
                     store_meta.insert().values(key="schema_version", value=str(SCHEMA_VERSION))
                 )
             elif stored != str(SCHEMA_VERSION):
-                raise StoreError(
-                    self.url,
-                    f"holds store schema version {stored}; this sigmatrack writes version "
-                    f"{SCHEMA_VERSION} (migrate the database or give another URL)",
-                )
+                self._upgrade(conn, stored, create)
         self._schema_ready = True
+
+    def _upgrade(self, conn: Connection, stored: str, create: bool) -> None:
+        """Bring a store of an older version up to date (its missing tables were just created
+        by ``create_all``), or accept it as it is for reading; refuse any other version."""
+        older = int(stored) if stored.isdigit() else None
+        added = (
+            [ADDED_TABLES.get(v) for v in range(older + 1, SCHEMA_VERSION + 1)]
+            if older is not None and older < SCHEMA_VERSION
+            else [None]
+        )
+        if any(tables is None for tables in added):
+            raise StoreError(
+                self.url,
+                f"holds store schema version {stored}; this sigmatrack writes version "
+                f"{SCHEMA_VERSION} (migrate the database or give another URL)",
+            )
+        if not create:
+            return  # an older layout reads as it is: its tables are unchanged
+        conn.execute(
+            store_meta.update()
+            .where(store_meta.c.key == "schema_version")
+            .values(value=str(SCHEMA_VERSION))
+        )
+        names = ", ".join(name for tables in added for name in tables or ())
+        _log.warning(
+            "%s: store schema version %s brought up to %d (tables added: %s)",
+            self.url,
+            stored,
+            SCHEMA_VERSION,
+            names,
+        )
 
     def write(self, spec: TableSpec, values: Sequence[tuple[Any, ...]]) -> int:
         """Write one parcel of rows (database values of one table) in one transaction.

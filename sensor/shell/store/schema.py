@@ -13,7 +13,9 @@ the key).
 Rows are written with insert-or-ignore on the key (``ON CONFLICT DO NOTHING``), so a row written
 twice is stored once; ``batches`` is an upsert that records a batch's end (and site file) when it
 becomes known and never erases one with ``None``. ``store_meta`` holds ``schema_version``: a
-database of another version is refused, never silently altered.
+database of an older version whose later versions only added tables (:data:`ADDED_TABLES`) is
+brought up to date when it is opened for writing, and logged; any other version is refused,
+never silently altered.
 
 :class:`TableSpec` converts between rows and database values; the tuples it produces (plain
 ``str``, ``int``, ``float``, ``bool`` and ``None``) are also what the durable queue keeps.
@@ -47,6 +49,11 @@ from sensor.shell.store.rows import (
 SCHEMA_VERSION = 2
 """Version of the table layout. Change it with every change of a row type's fields (a test
 holds the layout of each version)."""
+
+ADDED_TABLES: Mapping[int, tuple[str, ...]] = {2: ("checkpoints",)}
+"""Tables each version added to the one before, and nothing else changed: a store of an older
+version is brought up to date by creating them (:meth:`Store.ensure_schema`), and can be read
+as it is. A version that changes existing tables is not listed: such a store is refused."""
 
 metadata = MetaData()
 

@@ -71,7 +71,7 @@ def test_a_store_of_another_schema_version_stops_the_start(tmp_path):
     with Store(url) as store:
         store.ensure_schema()
         with store.engine.begin() as conn:
-            conn.exec_driver_sql("UPDATE store_meta SET value = '1' WHERE key = 'schema_version'")
+            conn.exec_driver_sql("UPDATE store_meta SET value = '9' WHERE key = 'schema_version'")
     site = with_changes(load_site_file(DEMO_SITE), store={"url": url})
-    with pytest.raises(StoreError, match="holds store schema version 1"):
+    with pytest.raises(StoreError, match="holds store schema version 9"):
         Service(site)._resume_units()

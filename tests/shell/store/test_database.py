@@ -13,6 +13,7 @@ from sensor.shell.config import load_site_file
 from sensor.shell.store import (
     AlarmEventRow,
     BatchRow,
+    CheckpointRow,
     ProposalRow,
     SampleRow,
     Store,
@@ -20,6 +21,7 @@ from sensor.shell.store import (
     audit_rows,
     read_audit,
     read_batch,
+    read_latest_checkpoint,
     read_site_file,
 )
 from sensor.shell.store.database import is_outage
@@ -181,6 +183,43 @@ def test_a_database_of_another_schema_version_is_refused(backend):
     backend.execute("UPDATE store_meta SET value = '0' WHERE key = 'schema_version'")
     with pytest.raises(StoreError, match=r"holds store schema version 0; this sigmatrack writes"):
         backend.store().ensure_schema()
+
+
+def _version_1_store(backend, rows) -> None:
+    """A store as version 1 wrote it (the same tables but ``checkpoints``), holding ``rows``."""
+    backend.store().ensure_schema()
+    write_rows(backend.store(), rows)
+    backend.execute("DROP TABLE checkpoints")
+    backend.execute("UPDATE store_meta SET value = '1' WHERE key = 'schema_version'")
+
+
+def test_a_version_1_store_is_read_as_it_is_and_brought_up_to_date_for_writing(
+    backend, rng, caplog
+):
+    batch = BatchRow("CR-301", "B-1", T0, T0 + timedelta(hours=1), "ab" * 32)
+    rows = [batch, *sample_rows(5), estimate_row(T0, rng)]
+    _version_1_store(backend, rows)
+    # reading leaves it alone
+    record = read_batch(backend.store(), "B-1")
+    assert len(record.estimates) == 1
+    assert backend.scalar("SELECT value FROM store_meta WHERE key = 'schema_version'") == "1"
+    # opening it for writing adds what version 2 added, and says so
+    with caplog.at_level("WARNING", logger="sensor.shell.store.database"):
+        store = backend.store()
+        store.ensure_schema()
+    assert "store schema version 1 brought up to 2 (tables added: checkpoints)" in caplog.text
+    assert backend.scalar("SELECT value FROM store_meta WHERE key = 'schema_version'") == "2"
+    checkpoint = CheckpointRow("CR-301", T0 + timedelta(minutes=5), '{"version":1}', "B-1")
+    assert write_rows(store, [checkpoint]) == 1
+    assert read_latest_checkpoint(store, "CR-301") == checkpoint
+    assert read_batch(store, "B-1").estimates == record.estimates  # nothing else changed
+
+
+def test_a_store_of_a_later_version_is_refused_for_reading_too(backend):
+    backend.store().ensure_schema()
+    backend.execute("UPDATE store_meta SET value = '3' WHERE key = 'schema_version'")
+    with pytest.raises(StoreError, match=r"holds store schema version 3; this sigmatrack writes"):
+        read_batch(backend.store(), "B-1")
 
 
 @pytest.mark.parametrize(
