@@ -74,7 +74,7 @@ from controller.guard import Guard, GuardDecision, GuardInputs, GuardLimits
 from controller.law import LawInputs, LawMode, LawSettings, Proposal, SetpointLaw
 from controller.protocols import SigmaPredictor
 from sensor.predictor import SigmaPredictor as ModelPredictor
-from sensor.samples import Sample
+from sensor.samples import Reading, Sample
 from sensor.softsensor import SoftSensor, StepResult, UnitSetup
 from sensor.units import ZERO_CELSIUS_K
 from sensor.validation import Reason
@@ -524,3 +524,52 @@ class UnitPipeline:
         pipeline.sensor.restore(state["sensor"])
         pipeline.advisor.restore(state["advisor"])
         return pipeline
+
+
+REHEARSAL_S = 900
+"""Length of :func:`rehearse`'s synthetic stretch [s at 1 s samples]."""
+
+
+def rehearse(setup: PipelineSetup) -> int:
+    """Step a throwaway pipeline of ``setup`` through a short synthetic stretch, so that every
+    compiled kernel of the live path is compiled (or loaded from numba's cache) before a
+    service's clock runs: a first call of a kernel compiles it, seconds of work that inside a
+    running service would stall every unit while the plant's values go on arriving.
+
+    The stretch, at 1 s: a clear, slightly supersaturated solution cooling in an estimating
+    phase without seed, then (where the unit seeds) a seeded phase in which proposals are
+    allowed, under the permissive, with the analyzer's values arriving delayed as configured,
+    one of them far off (gated) and a gap longer than the staleness limit (a restart). Its
+    results are thrown away.
+
+    Returns
+    -------
+    the number of steps taken
+    """
+    pipeline = UnitPipeline(setup)
+    sensor = setup.sensor
+    phases = sensor.estimating_phases or sensor.all_phases or frozenset({"controlled-cooling"})
+    clear = sorted(phases - sensor.seeded_phases) or sorted(phases)
+    seeded = sorted(setup.limits.proposal_phases & phases & sensor.seeded_phases) or clear
+    lo, hi = sensor.zone.solubility.temp_range_k
+    temp0 = min(max(setup.limits.final_temp_k + 20.0, lo + 1.0), hi - 1.0)
+    conc0 = 1.02 * float(sensor.zone.solubility.c_sat(temp0))
+    delay = sensor.measurements.analyzer_delay_s
+    gap_s = sensor.temp_rules.stale_after_s + 1.0
+    steps, t = 0, 0.0
+    for i in range(REHEARSAL_S):
+        t += gap_s if i == REHEARSAL_S - 10 else 1.0
+        temp = temp0 - 2.0e-3 * t
+        conc = conc0 * (1.0 + (0.2 if i == 600 else 0.0)) - 1.0e-5 * t
+        analyzer = Reading(conc, source_time_s=t - delay) if i % 10 == 0 else None
+        phase = clear[0] if i < 300 else seeded[0]
+        sample = Sample(
+            time_s=t,
+            temp=Reading(temp + 1.0e-3 * math.sin(i), source_time_s=t),
+            jacket_temp=Reading(temp - 3.0 + 1.0e-3 * math.cos(i), source_time_s=t),
+            conc=analyzer,
+            phase=phase,
+        )
+        pipeline.step(sample, DcsInputs(permissive=True, active_setpoint_k=temp))
+        steps += 1
+    return steps

@@ -9,7 +9,10 @@ from __future__ import annotations
 
 import json
 import math
+import subprocess
+import sys
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -178,3 +181,19 @@ def test_a_checkpoint_of_another_unit_or_version_is_refused(setup, samples):
         UnitPipeline.restore(replace(setup, unit_id="CR-302"), state)
     with pytest.raises(ControllerError, match="version 0"):
         UnitPipeline.restore(setup, {**state, "version": 0})
+
+
+def test_a_rehearsal_compiles_every_kernel_a_closed_loop_batch_uses():
+    """In a fresh interpreter, after :func:`sensor.pipeline.rehearse`, a whole closed-loop batch
+    of the simulated plant (seeding, cooling under the advisor, the analyzer delayed) compiles
+    no kernel more: a service that rehearses before it connects never stalls to compile."""
+    child = Path(__file__).with_name("rehearsal_child.py")
+    done = subprocess.run(
+        [sys.executable, str(child)], capture_output=True, text=True, timeout=600, check=False
+    )
+    assert done.returncode == 0, done.stderr[-3000:]
+    found = json.loads(done.stdout.strip().splitlines()[-1])
+    assert found["new"] == {}
+    rehearsed = {name for name, count in found["rehearsed"].items() if count > 0}
+    for kernel in ("step", "check_reading", "process_noise", "initial_state", "_propagate"):
+        assert any(name.endswith("." + kernel) for name in rehearsed), kernel

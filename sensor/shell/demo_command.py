@@ -188,43 +188,47 @@ async def _run(
     watch = BatchWatch(stop)
     view = ConsoleView(lambda line: print(line, flush=True), every_s=1800.0)
     log = (out / "sigmatrack-demo-plant.log").open("w", encoding="utf-8")
-    plant = await asyncio.create_subprocess_exec(
-        sys.executable,
-        "-m",
-        "sensor.shell.cli",
-        "simulate",
-        "--config",
-        str(site.path),
-        "--serve",
-        "--endpoint",
-        site.opcua.endpoint,
-        "--speed",
-        f"{args.speed:g}",
-        "--batches",
-        "1",
-        "--seed",
-        str(args.seed),
-        "--permissive",
-        stdout=subprocess.PIPE,
-        stderr=subprocess.STDOUT,
-    )
-    try:
-        serving = await asyncio.wait_for(_until_serving(plant, log), PLANT_START_S)
-    except TimeoutError:
-        serving = False
-    if not serving:
-        if plant.returncode is None:
-            plant.terminate()
-        await plant.wait()
-        log.close()
-        raise DemoError(f"the simulated plant did not start; see {log.name}")
-    copying = asyncio.create_task(_copy(plant, log))
+    started: list[asyncio.subprocess.Process] = []
+    tasks: list[asyncio.Task[None]] = []
 
-    async def plant_ended() -> None:
-        await plant.wait()
-        stop.set()
+    async def start_plant() -> None:
+        """Start the plant process once the service is ready (its kernels compiled), so that
+        the plant's accelerated clock does not run ahead of it."""
+        plant = await asyncio.create_subprocess_exec(
+            sys.executable,
+            "-m",
+            "sensor.shell.cli",
+            "simulate",
+            "--config",
+            str(site.path),
+            "--serve",
+            "--endpoint",
+            site.opcua.endpoint,
+            "--speed",
+            f"{args.speed:g}",
+            "--batches",
+            "1",
+            "--seed",
+            str(args.seed),
+            "--permissive",
+            stdout=subprocess.PIPE,
+            stderr=subprocess.STDOUT,
+        )
+        started.append(plant)
+        try:
+            serving = await asyncio.wait_for(_until_serving(plant, log), PLANT_START_S)
+        except TimeoutError:
+            serving = False
+        if not serving:
+            raise DemoError(f"the simulated plant did not start; see {log.name}")
+        tasks.append(asyncio.create_task(_copy(plant, log)))
 
-    ended = asyncio.create_task(plant_ended())
+        async def plant_ended() -> None:
+            await plant.wait()
+            stop.set()
+
+        tasks.append(asyncio.create_task(plant_ended()))
+
     try:
         status = await serve(
             site,
@@ -233,14 +237,16 @@ async def _run(
             on_live=(lambda url: print(f"  live trend page: {url}", flush=True),),
             end_batches=True,
             stop=stop,
+            ready=start_plant,
         )
     finally:
-        if plant.returncode is None:
-            plant.terminate()
+        for plant in started:
+            if plant.returncode is None:
+                plant.terminate()
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(plant.wait(), 10.0)
         with contextlib.suppress(TimeoutError):
-            await asyncio.wait_for(ended, 10.0)
-        with contextlib.suppress(TimeoutError):
-            await asyncio.wait_for(copying, 5.0)
+            await asyncio.wait_for(asyncio.gather(*tasks, return_exceptions=True), 5.0)
         log.close()
     return status, watch, not watch.last_phase_seen
 

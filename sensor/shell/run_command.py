@@ -14,7 +14,7 @@ import dataclasses
 import logging
 import signal
 import sys
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 
 from sensor.errors import SigmatrackError
 from sensor.shell.config import SiteConfig, load_site_file
@@ -78,8 +78,11 @@ async def serve(
     on_live: tuple[Callable[[str], None], ...] = (),
     end_batches: bool = False,
     stop: asyncio.Event | None = None,
+    ready: Callable[[], Awaitable[None]] | None = None,
 ) -> ServiceStatus:
     """Run the service until SIGINT or SIGTERM (or ``stop``) and return its final status.
+    ``ready`` is awaited once the service is prepared (:meth:`Service.prepare`), before it
+    connects (the demo starts its plant there).
 
     Raises
     ------
@@ -94,6 +97,9 @@ async def serve(
         site, plant_clock_speed=plant_clock_speed, listeners=listeners, on_live=on_live
     )
     try:
+        await asyncio.to_thread(service.prepare)
+        if ready is not None:
+            await ready()
         return await service.run(stop, end_batches=end_batches)
     except OSError as error:
         if isinstance(error, SigmatrackError):
@@ -121,6 +127,17 @@ def status_summary(status: ServiceStatus) -> str:
 def configure_logging(level: str) -> None:
     logging.basicConfig(level=level.upper(), format=LOG_FORMAT, stream=sys.stderr)
     logging.getLogger("asyncua").setLevel(logging.ERROR)
+    for handler in logging.getLogger().handlers:
+        handler.addFilter(_without_link_tracebacks)
+
+
+def _without_link_tracebacks(record: logging.LogRecord) -> bool:
+    """Drop asyncua's tracebacks of a closed or lost connection (its publish loop logs one
+    whenever the server goes away): the plant client reports a lost link itself, in one line,
+    with what it does next."""
+    error = record.exc_info[1] if record.exc_info else None
+    lost = isinstance(error, (ConnectionError, TimeoutError))
+    return not (lost and record.name.startswith("asyncua."))
 
 
 def with_live_port(site: SiteConfig, port: int | None) -> SiteConfig:

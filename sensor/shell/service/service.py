@@ -49,6 +49,7 @@ import dataclasses
 import hashlib
 import logging
 import math
+import time
 from collections import Counter
 from collections.abc import Awaitable, Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
@@ -61,7 +62,7 @@ from controller.alarm_set import crystallizer_alarms
 from controller.alarms import AlarmDefinition, AlarmEvent
 from controller.errors import ControllerError
 from sensor.kalman import FilterError
-from sensor.pipeline import DcsInputs
+from sensor.pipeline import DcsInputs, rehearse
 from sensor.shell.config import SiteConfig
 from sensor.shell.opcua.advisor_server import (
     AdvisorServer,
@@ -77,11 +78,13 @@ from sensor.shell.sitemodels import fit_site_solubility, site_metastable_zone
 from sensor.shell.sitesensor import pipeline_setup
 from sensor.shell.store import (
     Store,
+    StoreError,
     StoreRow,
     StoreUnavailableError,
     StoreWriter,
     WriterStatus,
     audit_rows,
+    find_batch,
     read_latest_checkpoint,
 )
 from sensor.shell.store.database import is_outage
@@ -212,6 +215,7 @@ class Service:
         self._problems: Counter[str] = Counter()
         self._dropped = 0
         self._skipped = 0
+        self._prepared = False
 
     # --- status -------------------------------------------------------------------------------
 
@@ -229,6 +233,25 @@ class Service:
 
     # --- running ------------------------------------------------------------------------------
 
+    def prepare(self) -> None:
+        """Compile the live path's kernels before anything connects: a throwaway pipeline
+        rehearses a short synthetic stretch (:func:`~sensor.pipeline.rehearse`) once per kind of
+        filter the units use. Without it the first steps of a fresh install compile them,
+        about ten seconds in which no unit is stepped and a plant's values pile up. Done once
+        (:meth:`run` calls it; a caller may call it earlier, in a thread)."""
+        if self._prepared:
+            return
+        kinds = {}
+        for unit in self.units:
+            kinds.setdefault(unit.setup.sensor.tuning.kind, unit.setup)
+        for kind, setup in kinds.items():
+            started = time.perf_counter()
+            steps = rehearse(setup)
+            _log.info(
+                "%s filter rehearsed (%d steps, %.1f s)", kind, steps, time.perf_counter() - started
+            )
+        self._prepared = True
+
     async def run(self, stop: asyncio.Event, *, end_batches: bool = False) -> ServiceStatus:
         """Serve until ``stop`` is set; then checkpoint every unit, flush the store and return
         the final status. ``end_batches``: also record each unit's batch as ended at its last
@@ -241,6 +264,7 @@ class Service:
             If the store, the security files or the server's endpoint cannot be used at the
             start.
         """
+        self.prepare()
         writer = StoreWriter.from_config(self.site.store).start()
         self.writer = writer
         try:
@@ -300,7 +324,7 @@ class Service:
                 for unit in self.units:
                     row = read_latest_checkpoint(store, unit.unit_id)
                     if row is not None:
-                        unit.resume(row)
+                        unit.resume(row, _batch_start(store, unit.unit_id, row.batch_id))
         except (StoreUnavailableError, sqlalchemy.exc.DBAPIError) as error:
             if isinstance(error, sqlalchemy.exc.DBAPIError) and not is_outage(error):
                 raise
@@ -434,6 +458,16 @@ class Service:
     def _put_many(self, rows: Iterable[StoreRow]) -> None:
         for row in rows:
             self._put(row)
+
+
+def _batch_start(store: Store, unit_id: str, batch_id: str | None) -> datetime | None:
+    """When the stored batch ``batch_id`` of the unit started; None if it is not stored."""
+    if batch_id is None:
+        return None
+    try:
+        return find_batch(store, batch_id, unit_id).start
+    except StoreError:
+        return None
 
 
 async def _wait(stop: asyncio.Event, seconds: float) -> None:

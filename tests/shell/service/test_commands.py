@@ -1,15 +1,17 @@
 """``sigmatrack run`` and ``demo`` refuse what they cannot use with one line and exit status 2,
 the live page's option turns the page on for one run, and the store at the start: away is no
-reason not to start, another schema version is."""
+reason not to start, another schema version is; the log leaves lost-link tracebacks out."""
 
 from __future__ import annotations
+
+import logging
 
 import pytest
 
 from sensor.shell.cli import main
 from sensor.shell.config import load_site_file
 from sensor.shell.demo_command import with_changes
-from sensor.shell.run_command import ServiceStartError, with_live_port
+from sensor.shell.run_command import ServiceStartError, configure_logging, with_live_port
 from sensor.shell.service.service import Service
 from sensor.shell.store import Store, StoreError
 from tests.conftest import DEMO_SITE
@@ -75,3 +77,15 @@ def test_a_store_of_another_schema_version_stops_the_start(tmp_path):
     site = with_changes(load_site_file(DEMO_SITE), store={"url": url})
     with pytest.raises(StoreError, match="holds store schema version 9"):
         Service(site)._resume_units()
+
+
+def test_asyncua_tracebacks_of_a_lost_link_are_left_to_the_plant_client(caplog):
+    configure_logging("INFO")
+    session = logging.getLogger("asyncua.client.ua_session.UaSession")
+    for error in (ConnectionError("Connection is closed"), ValueError("a real fault")):
+        try:
+            raise error
+        except Exception:
+            session.exception("Publish iteration crashed; retrying in 1s")
+    tracebacks = [r.exc_info[1] for r in caplog.records if r.name == session.name]
+    assert [type(e) for e in tracebacks] == [ValueError]
