@@ -1,6 +1,7 @@
 """The demo's console view: one line per unit every so often (simulated time), with the
 batch's progress, sigma against its limit, the proposal and the guard, and the alarms
-annunciated.
+annunciated (ISA-18.2: active ones, and cleared ones until an operator acknowledges them, which
+say so: ``sigma-high (medium, cleared, unacknowledged)``).
 
 ::
 
@@ -61,7 +62,12 @@ def status_line(step: UnitStep, elapsed_s: float) -> str:
             f"{decision.mode.value}" + (" (written)" if written else "")
         )
     alarms = [
-        f"{status.name} ({status.priority.value})"
+        f"{status.name} ({status.priority.value}"
+        + (
+            ", cleared, unacknowledged)"
+            if status.state is AlarmState.RETURNED_UNACKNOWLEDGED
+            else ")"
+        )
         for status in outputs.alarms
         if status.state in ANNUNCIATED
     ]

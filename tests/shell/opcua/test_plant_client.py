@@ -114,7 +114,7 @@ def test_values_statuses_and_timestamps_arrive_converted_once(demo_site, short_s
     assert dcs.batch_id == sim.batch_id
     assert dcs.permissive is False
     assert 273.15 < dcs.jacket_setpoint_k < 373.15
-    assert math.isnan(dcs.setpoint_k)  # the demo does not tag the DCS's working setpoint
+    assert 273.15 < dcs.setpoint_k < 373.15  # the recipe's working setpoint, tagged by the demo
     assert dcs.heartbeat == 0
 
 
