@@ -70,6 +70,7 @@ async def service_run(site, seconds: float) -> tuple[float, list[float], int]:
 
     stop = asyncio.Event()
     service = Service(site, listeners=[listen])
+    await asyncio.to_thread(service.prepare)  # as ``serve`` does, before anything connects
     running = asyncio.create_task(service.run(stop))
     await asyncio.sleep(10.0)  # connect, subscribe, first steps
     latencies.clear()

@@ -42,6 +42,29 @@ def _state(step: UnitStep, alarm: str) -> AlarmState:
     return next(s.state for s in step.outputs.alarms if s.name == alarm)
 
 
+class Running:
+    """The service on ``site`` against ``sim`` served on ``endpoint``, every step appended to
+    ``steps``; stopped on leaving, its final status in ``status``."""
+
+    def __init__(self, site, sim, endpoint: str, steps: list[UnitStep]) -> None:
+        self.service = Service(site, plant_clock_speed=SPEED, listeners=[steps.append])
+        self.served = Served(site, sim, endpoint, SPEED, [])
+        self.stop = asyncio.Event()
+        self.status = None
+
+    async def __aenter__(self) -> Running:
+        await self.served.__aenter__()
+        self.task = asyncio.create_task(self.service.run(self.stop))
+        return self
+
+    async def __aexit__(self, *exc: object) -> None:
+        self.stop.set()
+        try:
+            self.status = await self.task
+        finally:
+            await self.served.__aexit__()
+
+
 def test_an_acknowledgement_on_the_server_is_stored_with_the_operator(
     backend, demo_site, pki, tmp_path
 ):
@@ -62,36 +85,29 @@ def test_an_acknowledgement_on_the_server_is_stored_with_the_operator(
     comment = "analyzer flagged Bad; instrument tech called"
 
     async def exercise():
-        stop = asyncio.Event()
-        service = Service(site, plant_clock_speed=SPEED, listeners=[steps.append])
-        async with Served(site, sim, plant_endpoint, SPEED, []):
-            running = asyncio.create_task(service.run(stop))
-            try:
+        async with Running(site, sim, plant_endpoint, steps) as running:
+            await wait_until(
+                lambda: steps and _state(steps[-1], ALARM) is AlarmState.UNACKNOWLEDGED,
+                30.0,
+                "the analyzer alarm raised",
+            )
+            client = await client_of(
+                site, cert=pki.peer_cert, key=pki.peer_key, mode=SIGN, user=OPERATOR
+            )
+            async with client:
+                ns = await client.get_namespace_index(site.opcua.server.namespace_uri)
+                alarm = client.get_node(ua.NodeId(f"{UNIT}.alarms.{ALARM}", ns))
+                method = ua.NodeId(f"{UNIT}.alarms.{ALARM}.acknowledge", ns)
+                await alarm.call_method(method, comment)
+                state = client.get_node(ua.NodeId(f"{UNIT}.alarms.{ALARM}.state", ns))
                 await wait_until(
-                    lambda: steps and _state(steps[-1], ALARM) is AlarmState.UNACKNOWLEDGED,
-                    30.0,
-                    "the analyzer alarm raised",
+                    lambda: _state(steps[-1], ALARM) is AlarmState.ACKNOWLEDGED,
+                    10.0,
+                    "the acknowledgement taken",
                 )
-                client = await client_of(
-                    site, cert=pki.peer_cert, key=pki.peer_key, mode=SIGN, user=OPERATOR
-                )
-                async with client:
-                    ns = await client.get_namespace_index(site.opcua.server.namespace_uri)
-                    alarm = client.get_node(ua.NodeId(f"{UNIT}.alarms.{ALARM}", ns))
-                    method = ua.NodeId(f"{UNIT}.alarms.{ALARM}.acknowledge", ns)
-                    await alarm.call_method(method, comment)
-                    state = client.get_node(ua.NodeId(f"{UNIT}.alarms.{ALARM}.state", ns))
-                    await wait_until(
-                        lambda: _state(steps[-1], ALARM) is AlarmState.ACKNOWLEDGED,
-                        10.0,
-                        "the acknowledgement taken",
-                    )
-                    await asyncio.sleep(0.5)  # a publish of the state after it
-                    on_server = await state.read_value()
-            finally:
-                stop.set()
-                status = await running
-        return status, on_server
+                await asyncio.sleep(0.5)  # a publish of the state after it
+                on_server = await state.read_value()
+        return running.status, on_server
 
     status, on_server = run(exercise(), timeout_s=120.0)
     assert on_server == "acknowledged"
@@ -117,20 +133,13 @@ def test_a_restart_into_the_next_batch_starts_the_unit_afresh(backend, demo_site
     steps: list[UnitStep] = []
 
     async def serve(sim, count: int):
-        stop = asyncio.Event()
-        service = Service(site, plant_clock_speed=SPEED, listeners=[steps.append])
-        async with Served(site, sim, plant_endpoint, SPEED, []):
-            running = asyncio.create_task(service.run(stop))
-            try:
-                await wait_until(
-                    lambda: sum(s.batch_id == sim.batch_id for s in steps) >= count,
-                    40.0,
-                    f"{count} steps of batch {sim.batch_id}",
-                )
-            finally:
-                stop.set()
-                status = await running
-        return status
+        async with Running(site, sim, plant_endpoint, steps) as running:
+            await wait_until(
+                lambda: sum(s.batch_id == sim.batch_id for s in steps) >= count,
+                40.0,
+                f"{count} steps of batch {sim.batch_id}",
+            )
+        return running.status
 
     with caplog.at_level(logging.INFO, logger="sensor.shell.service"):
         run(serve(first, 200), timeout_s=90.0)
