@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import base64
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from controller.checkpoint import get_float, put_float
+from controller.checkpoint import get_float
 
 FloatArray = NDArray[np.float64]
 """A numpy array of floats (the type of every vectorised quantity)."""
@@ -62,24 +63,39 @@ def bracketed_newton(
     raise NoConvergence(f"no convergence in {max_iterations} iterations")
 
 
-def put_array(values: ArrayLike) -> list[Any]:
-    """A float array as nested lists of strict JSON values (:mod:`controller.checkpoint`).
+def put_array(values: ArrayLike) -> dict[str, Any]:
+    """A float array as a strict JSON value: its shape and its IEEE 754 doubles, little-endian,
+    in base64 (exact, NaN and infinities included; about a third of the text of a list of
+    decimal numbers, and written and read without a loop in Python: a filter's checkpoint holds
+    some 90 covariance matrices).
 
     >>> put_array(np.array([[1.5, np.nan]]))
-    [[1.5, 'nan']]
+    {'shape': [1, 2], 'f8': 'AAAAAAAA+D8AAAAAAAD4fw=='}
     """
-    array = np.asarray(values, dtype=float)
+    array = np.asarray(values, dtype="<f8")
     if array.ndim == 0:
         raise ValueError("put_array takes an array, not a number")
-    if array.ndim == 1:
-        return [put_float(v) for v in array.tolist()]
-    return [put_array(row) for row in array]
+    return {"shape": list(array.shape), "f8": base64.b64encode(array.tobytes()).decode("ascii")}
 
 
-def get_array(values: list[Any]) -> FloatArray:
-    """The array :func:`put_array` wrote."""
+def get_array(values: dict[str, Any] | list[Any]) -> FloatArray:
+    """The array :func:`put_array` wrote (or, from checkpoints of earlier releases, nested lists
+    of :func:`~controller.checkpoint.put_float` values).
 
-    def number(item: Any) -> Any:
-        return [number(v) for v in item] if isinstance(item, list) else get_float(item)
+    Raises
+    ------
+    ValueError
+        If the value is neither, or its bytes do not fill its shape.
+    """
+    if isinstance(values, list):
 
-    return np.array(number(values), dtype=float)
+        def number(item: Any) -> Any:
+            return [number(v) for v in item] if isinstance(item, list) else get_float(item)
+
+        return np.array(number(values), dtype=float)
+    try:
+        shape = tuple(int(n) for n in values["shape"])
+        data = base64.b64decode(values["f8"], validate=True)
+        return np.frombuffer(data, dtype="<f8").reshape(shape).astype(float)
+    except (KeyError, TypeError, ValueError) as error:
+        raise ValueError(f"checkpoint: not an array ({error})") from None

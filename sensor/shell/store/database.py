@@ -33,6 +33,7 @@ from sqlalchemy import (
     Engine,
     MetaData,
     create_engine,
+    delete,
     event,
     exc,
     func,
@@ -46,8 +47,10 @@ from sqlalchemy.sql.dml import Insert
 
 from sensor.shell.config import SQL_SCHEMA_NAME
 from sensor.shell.store.errors import StoreError
+from sensor.shell.store.rows import CheckpointRow
 from sensor.shell.store.schema import (
     ADDED_TABLES,
+    CHECKPOINTS_KEPT,
     SCHEMA_VERSION,
     TableSpec,
     metadata,
@@ -275,7 +278,29 @@ class Store:
         if not rows:
             return 0
         with self.engine.begin() as conn:
-            return self._execute(conn, spec, rows)
+            written = self._execute(conn, spec, rows)
+            if spec.row_type is CheckpointRow:
+                self._prune_checkpoints(conn, spec, rows)
+            return written
+
+    @staticmethod
+    def _prune_checkpoints(conn: Connection, spec: TableSpec, rows: list[tuple[Any, ...]]) -> None:
+        """Delete each written unit's checkpoints older than its newest
+        :data:`~sensor.shell.store.schema.CHECKPOINTS_KEPT`, in the write's transaction."""
+        table = spec.table
+        at = spec.columns.index("unit_id")
+        for unit_id in sorted({row[at] for row in rows}):
+            oldest_kept = (
+                select(table.c.time_us)
+                .where(table.c.unit_id == unit_id)
+                .order_by(table.c.time_us.desc())
+                .offset(CHECKPOINTS_KEPT - 1)
+                .limit(1)
+                .scalar_subquery()
+            )
+            conn.execute(
+                delete(table).where(table.c.unit_id == unit_id, table.c.time_us < oldest_kept)
+            )
 
     def _execute(self, conn: Connection, spec: TableSpec, rows: list[tuple[Any, ...]]) -> int:
         statement = self._statement(spec)

@@ -50,6 +50,11 @@ SCHEMA_VERSION = 2
 """Version of the table layout. Change it with every change of a row type's fields (a test
 holds the layout of each version)."""
 
+CHECKPOINTS_KEPT = 10
+"""Checkpoints kept per unit: writing one deletes that unit's older ones beyond this many. A
+checkpoint is the state to resume from, not a record of the batch (the estimates, decisions and
+events are), and one unit's is tens of kB a minute: kept for months, gigabytes."""
+
 ADDED_TABLES: Mapping[int, tuple[str, ...]] = {2: ("checkpoints",)}
 """Tables each version added to the one before, and nothing else changed: a store of an older
 version is brought up to date by creating them (:meth:`Store.ensure_schema`), and can be read

@@ -23,6 +23,7 @@ from sensor.shell.store import (
     read_site_file,
 )
 from sensor.shell.store.rows import epoch_us
+from sensor.shell.store.schema import CHECKPOINTS_KEPT
 from tests.shell.store.conftest import T0, estimate_row
 from tests.shell.store.tcpproxy import free_port
 from tests.shell.store.test_database import write_rows
@@ -135,3 +136,23 @@ def test_the_latest_checkpoint_of_a_unit_is_the_one_read_back(backend):
     write_rows(store, [*rows, CheckpointRow("CR-302", T0 + HOUR, "{}")])
     assert read_latest_checkpoint(store, "CR-301") == rows[1]
     assert read_latest_checkpoint(store, "CR-302").batch_id is None
+
+
+def test_only_the_newest_checkpoints_of_each_unit_are_kept(backend):
+    store = backend.store()
+    minutes = list(range(CHECKPOINTS_KEPT + 5))
+    for first in range(0, len(minutes), 4):  # written in several parcels, as the writer does
+        write_rows(
+            store,
+            [
+                CheckpointRow("CR-301", T0 + timedelta(minutes=m), f'{{"minute": {m}}}', "B1")
+                for m in minutes[first : first + 4]
+            ],
+        )
+    write_rows(store, [CheckpointRow("CR-302", T0, "{}")])
+    kept = backend.scalar("SELECT count(*) FROM checkpoints WHERE unit_id = 'CR-301'")
+    oldest = backend.scalar("SELECT min(time_us) FROM checkpoints WHERE unit_id = 'CR-301'")
+    assert kept == CHECKPOINTS_KEPT
+    assert oldest == epoch_us(T0 + timedelta(minutes=minutes[-CHECKPOINTS_KEPT]))
+    assert backend.scalar("SELECT count(*) FROM checkpoints WHERE unit_id = 'CR-302'") == 1
+    assert read_latest_checkpoint(store, "CR-301").state == f'{{"minute": {minutes[-1]}}}'
