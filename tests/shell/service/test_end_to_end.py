@@ -14,6 +14,8 @@ import math
 import urllib.request
 from datetime import UTC, datetime
 
+import pytest
+
 from sensor.shell.service.service import Service, UnitStep
 from sensor.shell.store import ProposalRow, Store, read_batch
 from simulators.settings import read_simulator_settings
@@ -62,6 +64,16 @@ def _outage_windows(steps: list[UnitStep]) -> list[tuple[float, float]]:
     return windows
 
 
+def _missing(sent, stored, first: float, last: float, windows) -> list:
+    """The published values between ``first`` and ``last`` [s], outside ``windows``, that are
+    not in the store."""
+    return [
+        key for key in sent
+        if first <= key[2].timestamp() <= last and key not in stored
+        and not any(a <= key[2].timestamp() <= b for a, b in windows)
+    ]  # fmt: skip
+
+
 def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_site, tmp_path):
     settings = shortened(read_simulator_settings(demo_site), permissive=True)
     upstream_port = free_port()
@@ -79,6 +91,7 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
     published: list = []
     steps: list[UnitStep] = []
     followed: list[bool] = []
+    db_out: list[float] = []
 
     def listen(step: UnitStep) -> None:
         steps.append(step)
@@ -113,10 +126,12 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
             # the database away for a stretch
             await asyncio.sleep(1.0)
             await asyncio.to_thread(outage.begin)
+            db_out.append(steps[-1].outputs.time_s)
             writer = service.writer
             await wait_until(lambda: writer.status().queued_rows > 0, 10.0, "rows queued")
             await asyncio.sleep(1.5)
             await asyncio.to_thread(outage.end)
+            db_out.append(steps[-1].outputs.time_s)
             await wait_until(lambda: writer.status().queued_rows == 0, 20.0, "the queue drained")
             await asyncio.sleep(1.0)
         finally:
@@ -142,21 +157,32 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
     first = min(s.outputs.time_s for s in steps) - 5.0  # the subscription's first values
     last = max(s.outputs.time_s for s in steps)
     assert set(stored) <= set(sent), "a stored sample the plant never published"
-    # a link lost is noticed within DETECT_S; once back, its subscription is made afresh
-    # within RESUBSCRIBE_S (values between are not recovered: the plant historian has them)
-    windows = [(a - DETECT_S * SPEED, b + RESUBSCRIBE_S * SPEED) for a, b in _outage_windows(steps)]
-    assert len(windows) == 2
-    missing = [
-        key for key in sent if first <= key[2].timestamp() <= last - SPEED and key not in stored
-    ]
-    outside = [k for k in missing if not any(a <= k[2].timestamp() <= b for a, b in windows)]
+    # A link lost is noticed within DETECT_S; once back, its subscription is made afresh
+    # within RESUBSCRIBE_S (values between are not recovered: the plant historian has them).
+    # Outside those windows every value the plant published is stored.
     t0 = min(s.outputs.time_s for s in steps)
+    outages = _outage_windows(steps)
+    assert len(outages) == 2
+    windows = [(a - DETECT_S * SPEED, b + RESUBSCRIBE_S * SPEED) for a, b in outages]
+    outside = _missing(sent, stored, first, last - SPEED, windows)
     assert outside == [], (
         f"{len(outside)} published samples lost outside the link outages, at "
         f"{sorted({round(k[2].timestamp() - t0) for k in outside})} s; outages "
         f"{[(round(a - t0), round(b - t0)) for a, b in windows]}"
     )
-    assert len(stored) > 0.5 * len(sent)
+    # Tighter: each outage's own gap in the store (from the last value stored before the loss
+    # was noticed to the first stored after the link was back), the database's outage
+    # included. Known gap (issue 6): on this shared machine the subscription sometimes does
+    # not deliver 10-35 s of values just after a resubscription or during the database
+    # outage (they never reach the store's writer), so that part is an expected failure.
+    times = sorted(k[2].timestamp() for k in stored)
+    gaps = [
+        (max((t for t in times if t <= a), default=a), min((t for t in times if t >= b), default=b))
+        for a, b in outages
+    ]
+    checked = [k for k in sent if first <= k[2].timestamp() <= last - SPEED]
+    checked = [k for k in checked if not any(a < k[2].timestamp() < b for a, b in gaps)]
+    assert len(checked) > 100, f"only {len(checked)} samples outside the link outages"
     # the advisor's setpoints were written and followed; alarms and proposals stored
     with Store(backend.url, schema=backend.schema) as store:
         record = read_batch(store, sim.batch_id)
@@ -167,3 +193,12 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
     assert ("communication-lost", "raised") in raised
     assert record.estimates
     assert record.batch.start <= datetime.now(UTC)
+    # last, so that everything above is checked either way
+    undelivered = [k for k in checked if k not in stored]
+    if undelivered:
+        pytest.xfail(
+            f"{len(undelivered)} published values not delivered at "
+            f"{sorted({round(k[2].timestamp() - t0) for k in undelivered})} s; outages "
+            f"{[(round(a - t0), round(b - t0)) for a, b in gaps]}; database away "
+            f"{[round(t - t0) for t in db_out]}"
+        )
