@@ -13,8 +13,8 @@ advisor's seeding-to-final time over the linear ramp's (target <= 0.70) and over
 (target <= 1.15), and the law's per-update cost with the predictive check on (median, target
 < 2 ms), with, side by side on one estimate, the law's cost as a multiple of one bare forecast
 of its candidate ramps (the law's own work beyond the model). Costs are CPU time of this
-process (``time.process_time``), so that other work sharing the machine does not count. With
-``--check`` it exits 1 when any target is missed by any batch.
+process (``time.process_time``): other processes' time is not counted (sharing the cores can
+still slow it). With ``--check`` it exits 1 when any target is missed by any batch.
 """
 
 from __future__ import annotations

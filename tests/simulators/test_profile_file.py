@@ -10,6 +10,7 @@ in DEVELOPERS.md, "Profile CSV"), not with the reader under test.
 from __future__ import annotations
 
 import csv
+from dataclasses import replace
 from itertools import pairwise
 
 import numpy as np
@@ -79,11 +80,14 @@ def test_the_fallback_resumes_the_plan_where_it_stands(file_settings, planned):
     r = file_settings.recipe
     recipe = Recipe(r, 20.0 + K0)
     _to_cooling(recipe)
-    start = recipe.phase_start_s
-    # the advisor holds 3 K below the seed point, ahead of the plan (0.5 K down at 10 min)
+    drop_s = recipe.phase_start_s + 600.0
+    # the advisor holds 3 K below the seed point, ahead of the plan (0.5 K down at 10 min),
+    # until the operator takes the permissive back; its heartbeat goes on
     hold_c = r.seed_temp_c - 3.0
-    out = _run(recipe, 1200, _beating(setpoint_c=hold_c, stop_at=start + 600.0))
+    beating = _beating(setpoint_c=hold_c)
+    out = _run(recipe, 1200, lambda t: replace(beating(t), permissive=t < drop_s))
     last_active = max(i for i, o in enumerate(out) if o.remote_active)
+    assert recipe.time_s - 1200 + last_active + 1 == drop_s - 1  # handed back at once
     after = out[last_active + 1 :]
     assert abs(after[0].setpoint_k - (hold_c + K0)) < 0.01  # no bump
     assert all(b.setpoint_k <= a.setpoint_k + 1e-12 for a, b in pairwise(after))  # no reheat
