@@ -9,7 +9,7 @@ standard deviations, 0 by default) under ``--sigma-max`` (default:
 ``controller.target_zone_rate_k_per_min``), no faster than ``guard.max_cooling_rate_k_per_min``
 (:func:`controller.optimal_profile.minimum_time_profile`). It is written as a profile CSV
 (DEVELOPERS.md, "Profile CSV"), which the simulator's recipe can follow
-(``simulator.recipe.cooling_profile = "file"``).
+(``simulator.recipe.cooling_profile = "file"`` with ``cooling_profile_file``).
 """
 
 from __future__ import annotations
