@@ -106,6 +106,7 @@ class MetastableZone(ABC):
         2 g(T_s) + T_s)`, which converges quadratically where the plain iteration converges
         linearly (9 to 17 steps for the demo's zone; 2 or 3 rounds with it); where the
         extrapolation is not a number (the steps already zero) the second plain step is kept.
+        ``max_iterations`` counts rounds.
 
         References
         ----------
