@@ -6,7 +6,8 @@ r"""Reference cooling profiles: time/temperature tables an engineer can load int
   first, while the seed's surface is small, faster as the crystals grow.
 - the offline optimised profile (``controller.optimal_profile``), built on the model.
 
-Any of them can be written as CSV (:func:`write_profile_csv`) for a recipe's fallback profile.
+Any of them can be written as a profile CSV (``sensor.shell.labdata.write_profile_csv``, the
+format's one writer and reader) for a recipe's fallback profile.
 
 The Mullin-Nývlt profile
 ------------------------
@@ -24,18 +25,6 @@ mass deposited, so
 :math:`\tau` is the batch time. With small seeds (:math:`r \to 0`) this is the cubic profile
 :math:`T = T_0 - (T_0 - T_f)(t/\tau)^3`.
 
-CSV columns
------------
-``#`` comment lines first (what the profile is, how it was made, the caution), then a header
-and one row per point:
-
-====================  ============================================================
-``time_min``          time since the start of the profile [min]
-``temp_c``            reactor-temperature setpoint [°C]
-``cooling_rate_k_per_min``  cooling rate from this row to the next [K/min], positive
-                      when cooling; 0 on the last row
-====================  ============================================================
-
 References
 ----------
 .. [1] J. W. Mullin, J. Nývlt, "Programmed cooling of batch crystallizers", Chem. Eng. Sci. 26
@@ -47,28 +36,14 @@ References
 
 from __future__ import annotations
 
-import csv
 import math
-from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import TextIO
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from controller.errors import SettingsError
 from controller.protocols import FloatArray
-
-_ZERO_CELSIUS_K = 273.15
-"""0 °C in K, for the CSV boundary (the controller imports no unit module)."""
-
-CSV_COLUMNS = ("time_min", "temp_c", "cooling_rate_k_per_min")
-
-CAUTION = (
-    "Advisory reference profile from sigmatrack. Review it against the site's limits, "
-    "management of change and licensed practice before loading it into a recipe; the DCS "
-    "keeps control and the safety instrumented system keeps protection."
-)
 
 
 @dataclass(frozen=True)
@@ -212,23 +187,3 @@ def mullin_nyvlt_profile(
     time = np.linspace(0.0, duration_s, points)
     drop = (start_temp_k - final_temp_k) * mullin_nyvlt_fraction(time / duration_s, ratio)
     return CoolingProfile("mullin-nyvlt", time, start_temp_k - drop)
-
-
-def write_profile_csv(
-    profile: CoolingProfile, stream: TextIO, *, comments: Iterable[str] = ()
-) -> None:
-    """Write ``profile`` as CSV to an open text stream (columns in the module's description).
-
-    ``comments`` are written as ``#`` lines before the header, after the profile's name and the
-    caution. Times are written to 0.01 min, temperatures to 0.01 °C and rates to 0.0001 K/min.
-    """
-    stream.write(f"# sigmatrack reference cooling profile: {profile.name}\n")
-    for line in (*comments, CAUTION):
-        stream.write(f"# {line}\n")
-    writer = csv.writer(stream, lineterminator="\n")
-    writer.writerow(CSV_COLUMNS)
-    rates = np.append(profile.cooling_rate_k_per_s() * 60.0, 0.0)
-    for time, temp, rate in zip(profile.time_s, profile.temp_k, rates, strict=True):
-        writer.writerow(
-            [f"{time / 60.0:.2f}", f"{temp - _ZERO_CELSIUS_K:.2f}", f"{rate + 0.0:.4f}"]
-        )

@@ -330,6 +330,15 @@ def kinetics(
     rate before :math:`\\theta` [m/s], :math:`k_b \\sigma^b` [1/(kg s)] and whether
     :math:`\\sigma > 0` (growth, scaled by :math:`\\theta`) or not (dissolution)."""
     c_sat, _ = c_sat_from_table(temp_k, params, table)
+    return kinetics_at_c_sat(c_sat, conc, params)
+
+
+@numba.njit(cache=True)
+def kinetics_at_c_sat(
+    c_sat: float, conc: float, params: FloatArray
+) -> tuple[float, float, float, bool]:
+    """:func:`kinetics` with the solubility [kg/kg] already looked up (for a forecast whose
+    temperature is prescribed, the same for every sigma point)."""
     sigma = conc / c_sat - 1.0
     if sigma > 0.0:
         # powers through one logarithm (this runs for every sigma point of every step)

@@ -80,6 +80,13 @@ class MetastableZone(ABC):
         # it falls (made by heating).
         return np.sign(self.solubility.dc_sat_dtemp(temp_k))
 
+    def _direction_and_width(
+        self, temp_sat_k: FloatArray, rate_k_per_s: FloatArray
+    ) -> tuple[FloatArray, FloatArray]:
+        """:meth:`_direction` and :meth:`width_k` at once (a zone whose width needs the
+        solubility's slope computes it once for both)."""
+        return self._direction(temp_sat_k), self.width_k(temp_sat_k, rate_k_per_s)
+
     def cloud_temp_k(self, conc: ArrayLike, rate_k_per_s: ArrayLike) -> FloatArray:
         """Temperature [K] at which a solution of ``conc`` [kg/kg] nucleates at this rate.
         NaN where the concentration is outside the solubility curve's domain."""
@@ -90,18 +97,40 @@ class MetastableZone(ABC):
         self, temp_k: ArrayLike, rate_k_per_s: ArrayLike, *, max_iterations: int = 60
     ) -> FloatArray:
         r"""Saturation temperature :math:`T_s` [K] of the solution at the metastable limit at
-        ``temp_k``: the root of :math:`T_s = T + \Delta T_{max}(T_s, b)` (fixed point; the
-        width changes slowly with :math:`T_s`, so it converges in a few steps)."""
+        ``temp_k``: the root of :math:`T_s = g(T_s) = T + \Delta T_{max}(T_s, b)`, a fixed
+        point (the width changes slowly with :math:`T_s`), solved to :math:`|g(T_s) - T_s| \le
+        10^{-10}` K.
+
+        Each round takes two steps of the plain iteration and then Steffensen's (Aitken's
+        :math:`\Delta^2`) extrapolation [1]_, :math:`T_s - (g(T_s) - T_s)^2 / (g(g(T_s)) -
+        2 g(T_s) + T_s)`, which converges quadratically where the plain iteration converges
+        linearly (9 to 17 steps for the demo's zone; 2 or 3 rounds with it); where the
+        extrapolation is not a number (the steps already zero) the second plain step is kept.
+        ``max_iterations`` counts rounds.
+
+        References
+        ----------
+        .. [1] J. F. Steffensen, "Remarks on iteration", Skandinavisk Aktuarietidskrift 16
+           (1933) 64-72; in R. L. Burden, J. D. Faires, *Numerical Analysis*, 9th ed., 2011,
+           section 2.5 (Aitken's method and Steffensen's method; section from memory).
+        """
         temp, rate = np.broadcast_arrays(
             np.asarray(temp_k, dtype=float), np.asarray(rate_k_per_s, dtype=float)
         )
-        temp_sat = temp + self._direction(temp) * self.width_k(temp, rate)
+
+        def step(temp_sat: FloatArray) -> FloatArray:
+            direction, width = self._direction_and_width(temp_sat, rate)
+            return temp + direction * width
+
+        temp_sat = step(temp)
         for _ in range(max_iterations):
-            updated = temp + self._direction(temp_sat) * self.width_k(temp_sat, rate)
-            step = np.abs(updated - temp_sat)
-            temp_sat = updated
-            if not np.any(step > 1e-10):
-                return temp_sat
+            once = step(temp_sat)
+            if not np.any(np.abs(once - temp_sat) > 1e-10):
+                return once
+            twice = step(once)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                extrapolated = temp_sat - (once - temp_sat) ** 2 / (twice - 2.0 * once + temp_sat)
+            temp_sat = np.where(np.isfinite(extrapolated), extrapolated, twice)
         raise FitError(f"metastable limit did not converge in {max_iterations} iterations")
 
     def c_limit(self, temp_k: ArrayLike, rate_k_per_s: ArrayLike) -> FloatArray:
@@ -188,14 +217,30 @@ class NyvltZone(MetastableZone):
         self, temp_sat_k: ArrayLike, rate_k_per_s: ArrayLike
     ) -> tuple[FloatArray, FloatArray]:
         slope = np.abs(self.solubility.dc_sat_dtemp(np.asarray(temp_sat_k, dtype=float)))
+        return self._log_terms_of_slope(slope, rate_k_per_s)
+
+    @staticmethod
+    def _log_terms_of_slope(
+        slope: FloatArray, rate_k_per_s: ArrayLike
+    ) -> tuple[FloatArray, FloatArray]:
         with np.errstate(divide="ignore"):
             log_drive = np.log(np.asarray(rate_k_per_s, dtype=float) * slope)
         return log_drive, np.log(slope)
 
-    def width_k(self, temp_sat_k: ArrayLike, rate_k_per_s: ArrayLike) -> FloatArray:
-        log_drive, log_slope = self._log_terms(temp_sat_k, rate_k_per_s)
+    def _width_of_slope(self, slope: FloatArray, rate_k_per_s: ArrayLike) -> FloatArray:
+        log_drive, log_slope = self._log_terms_of_slope(slope, rate_k_per_s)
         a0, a1 = self.params
         return np.exp(a0 + a1 * log_drive - log_slope)
+
+    def width_k(self, temp_sat_k: ArrayLike, rate_k_per_s: ArrayLike) -> FloatArray:
+        slope = np.abs(self.solubility.dc_sat_dtemp(np.asarray(temp_sat_k, dtype=float)))
+        return self._width_of_slope(slope, rate_k_per_s)
+
+    def _direction_and_width(
+        self, temp_sat_k: FloatArray, rate_k_per_s: FloatArray
+    ) -> tuple[FloatArray, FloatArray]:
+        slope = self.solubility.dc_sat_dtemp(temp_sat_k)
+        return np.sign(slope), self._width_of_slope(np.abs(slope), rate_k_per_s)
 
     def _log_width_std(self, temp_sat_k: ArrayLike, rate_k_per_s: ArrayLike) -> FloatArray:
         log_drive, _ = self._log_terms(temp_sat_k, rate_k_per_s)

@@ -35,7 +35,15 @@ import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints
 from numpy.typing import ArrayLike
 
-from sensor.crystallizer import CONC, TEMP, CrystallizerModel, c_sat_from_table, rates, substeps
+from sensor.crystallizer import (
+    CONC,
+    TEMP,
+    CrystallizerModel,
+    c_sat_from_table,
+    kinetics_at_c_sat,
+    rates_with,
+    substeps,
+)
 from sensor.errors import SigmatrackError
 from sensor.kalman import FilterTuning
 from sensor.numerics import FloatArray
@@ -66,30 +74,62 @@ class SigmaForecast:
 
 
 @numba.njit(cache=True)
+def _path_solubility(times, temps, params, table, max_step, sub_temp, sub_c_sat, out_c_sat):
+    """Along one path (``temps``, one per time): the temperature and solubility at the start of
+    every Euler sub-step, in order (``sub_temp``, ``sub_c_sat``; returns how many), and the
+    solubility at each time (``out_c_sat``). The temperature is prescribed, so these are the
+    same for every sigma point: looked up once, not once per point."""
+    count = 0
+    for j in range(times.shape[0]):
+        if j > 0:
+            span = times[j] - times[j - 1]
+            steps = substeps(span, max_step)
+            for k in range(steps):
+                # the path is linear between its points
+                temp = temps[j - 1] + (temps[j] - temps[j - 1]) * (k / steps)
+                sub_temp[count] = temp
+                sub_c_sat[count], _ = c_sat_from_table(temp, params, table)
+                count += 1
+        out_c_sat[j], _ = c_sat_from_table(temps[j], params, table)
+    return count
+
+
+@numba.njit(cache=True)
 def _propagate(sigmas, times, temps, params, table, max_step, out_sigma, out_conc):
     """Each sigma point along each path: ``out_sigma[p, i, j]``, ``out_conc[p, i, j]`` for path
     ``p`` (a row of ``temps``), sigma point ``i``, at ``times[j]``."""
     count, n = sigmas.shape
-    slope = np.empty(n)
+    slope = np.zeros(n)
+    x = np.empty(n)
+    total = 0
+    for j in range(1, times.shape[0]):
+        total += substeps(times[j] - times[j - 1], max_step)
+    sub_temp = np.empty(total)
+    sub_c_sat = np.empty(total)
+    out_c_sat = np.empty(times.shape[0])
     for p in range(temps.shape[0]):
+        _path_solubility(times, temps[p], params, table, max_step, sub_temp, sub_c_sat, out_c_sat)
         for i in range(count):
-            x = sigmas[i].copy()
+            x[:] = sigmas[i]
             x[TEMP] = temps[p, 0]
+            step = 0
             for j in range(times.shape[0]):
                 if j > 0:
                     span = times[j] - times[j - 1]
                     steps = substeps(span, max_step)
                     h = span / steps
-                    for k in range(steps):
-                        # the path is linear between its points; the temperature is prescribed
-                        x[TEMP] = temps[p, j - 1] + (temps[p, j] - temps[p, j - 1]) * (k / steps)
-                        rates(x, x[TEMP], params, table, slope)
+                    for _ in range(steps):
+                        x[TEMP] = sub_temp[step]
+                        _, growth, birth, growing = kinetics_at_c_sat(
+                            sub_c_sat[step], x[CONC], params
+                        )
+                        rates_with(x, x[TEMP], growth, birth, growing, params, slope)
                         for m in range(n):
                             if m != TEMP:
                                 x[m] += h * slope[m]
+                        step += 1
                     x[TEMP] = temps[p, j]
-                c_sat, _ = c_sat_from_table(x[TEMP], params, table)
-                out_sigma[p, i, j] = x[CONC] / c_sat - 1.0
+                out_sigma[p, i, j] = x[CONC] / out_c_sat[j] - 1.0
                 out_conc[p, i, j] = x[CONC]
 
 

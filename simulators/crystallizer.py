@@ -51,12 +51,15 @@ class PlantSolubility:
     step_k : table step [K]
     c_sat_table : solubility [kg/kg solvent]
     sigma_limit_table : relative supersaturation at the metastable limit [-]
+    trusted_k : the site curve's trusted domain, shifted by the offset [K]: where a recipe may
+        run; the table reaches ``widening_k`` below it (:meth:`from_site`)
     """
 
     temp_lo_k: float
     step_k: float
     c_sat_table: tuple[float, ...]
     sigma_limit_table: tuple[float, ...]
+    trusted_k: tuple[float, float]
 
     @classmethod
     def from_site(
@@ -66,8 +69,12 @@ class PlantSolubility:
         offset_k: float,
         reference_rate_k_per_s: float,
         step_k: float = 0.01,
+        widening_k: float = 0.0,
     ) -> PlantSolubility:
-        lo, hi = curve.domain_k
+        """Tabulate the site's curve and zone over the curve's trusted domain and ``widening_k``
+        [K] below it (the site's correlation extrapolated, for a fault that overcools)."""
+        trusted_lo, hi = curve.domain_k
+        lo = trusted_lo - widening_k
         count = math.floor((hi - lo) / step_k) + 1
         site_temps = lo + step_k * np.arange(count)
         c_sat = curve.c_sat(site_temps)
@@ -76,7 +83,12 @@ class PlantSolubility:
             raise SimulatorError(
                 "the metastable zone gives no positive limit over the curve's domain"
             )
-        return cls(lo - offset_k, step_k, tuple(c_sat.tolist()), tuple(sigma_limit.tolist()))
+        if not (np.all(np.isfinite(c_sat)) and np.all(c_sat > 0.0)):
+            raise SimulatorError("the solubility curve is not positive over the plant's table")
+        trusted = (trusted_lo - offset_k, hi - offset_k)
+        return cls(
+            lo - offset_k, step_k, tuple(c_sat.tolist()), tuple(sigma_limit.tolist()), trusted
+        )
 
     @property
     def range_k(self) -> tuple[float, float]:

@@ -1,7 +1,7 @@
-r"""Instrument faults: what can go wrong with a transmitter or the analyzer, and when.
+r"""Faults: what can go wrong with a transmitter, the analyzer or the jacket, and when.
 
-A fault acts on one measured signal (``temp``, ``jacket_temp`` or ``conc``) from ``start_s`` for
-``duration_s`` of batch time. The kinds, and how a historian shows them:
+An instrument fault acts on one measured signal (``temp``, ``jacket_temp`` or ``conc``) from
+``start_s`` for ``duration_s`` of batch time. The kinds, and how a historian shows them:
 
 =============  ==========================================================  =====================
 kind           what the instrument does                                    in the historian CSV
@@ -23,6 +23,14 @@ kind           what the instrument does                                    in th
 When faults overlap on one signal, ``dropout`` wins over ``bad``, ``bad`` over ``nan``, ``nan``
 over ``frozen``, and ``frozen`` over the rest.
 
+A process fault acts on the plant itself, its instruments reading true. There is one:
+
+- ``cooling-open``: the jacket's cooling valve fails open. The jacket runs towards the coldest
+  utility (the low end of ``thermal.jacket_setpoint_range_c``) whatever the temperature loop
+  asks, through its own lag and rate limit; the loop keeps asking (its jacket setpoint is
+  still what the DCS shows) and is obeyed again when the fault ends. Its signal is the jacket
+  (``jacket_temp``, the default for it; no other is accepted).
+
 On the command line (``sigmatrack simulate --faults SPEC``) faults are written
 
 .. code-block:: text
@@ -32,30 +40,27 @@ On the command line (``sigmatrack simulate --faults SPEC``) faults are written
     START, DURATION = a number with a unit: 90s, 20min, 2.5h (a bare number is seconds)
     OPTION   = every_s=NUMBER | size_std=NUMBER | rate_per_h=NUMBER
 
-for example ``dropout@5h+10min; spikes@3h+1h:every_s=120; frozen/temp@6h+20min``. The signal
-defaults to ``conc``.
+for example ``dropout@5h+10min; spikes@3h+1h:every_s=120; frozen/temp@6h+20min;
+cooling-open@7h+30min``. The signal defaults to ``conc`` (for a process fault, to its part).
 """
 
 from __future__ import annotations
 
 import math
 import re
+import typing
 from dataclasses import dataclass, field
 from typing import Literal
 
 from sensor.shell.tomlschema import Invalid, check, non_negative, positive
 from simulators.errors import SimulatorError
 
-FaultKind = Literal["spikes", "dropout", "frozen", "bad", "uncertain", "drift", "nan"]
-FAULT_KINDS: tuple[str, ...] = (
-    "spikes",
-    "dropout",
-    "frozen",
-    "bad",
-    "uncertain",
-    "drift",
-    "nan",
-)
+FaultKind = Literal[
+    "spikes", "dropout", "frozen", "bad", "uncertain", "drift", "nan", "cooling-open"
+]
+FAULT_KINDS: tuple[str, ...] = typing.get_args(FaultKind)
+PROCESS_FAULT_SIGNALS = {"cooling-open": "jacket_temp"}
+"""The process faults, and the part of the plant each acts on (named by its measured signal)."""
 FaultSignal = Literal["temp", "jacket_temp", "conc"]
 FAULT_SIGNALS: tuple[str, ...] = ("temp", "jacket_temp", "conc")
 
@@ -71,7 +76,8 @@ class Fault:
     kind : what goes wrong (see the module's table)
     start_s : when it starts, from the start of the batch [s]
     duration_s : how long it lasts [s]
-    signal : the instrument: ``temp``, ``jacket_temp`` or ``conc`` (the analyzer)
+    signal : the instrument: ``temp``, ``jacket_temp`` or ``conc`` (the analyzer; the
+        default); for a process fault, the part it acts on (the default, the only one allowed)
     every_s : ``spikes`` only: mean time between spikes [s]
     size_std : ``spikes`` only: spike height in noise standard deviations [-]
     rate_per_h : ``drift`` only: growth of the calibration offset [kg/kg solvent per h] for
@@ -81,12 +87,17 @@ class Fault:
     kind: FaultKind
     start_s: float = field(metadata=check(non_negative))
     duration_s: float = field(metadata=check(positive))
-    signal: FaultSignal = "conc"
+    signal: FaultSignal | None = None
     every_s: float | None = field(default=None, metadata=check(positive))
     size_std: float | None = field(default=None, metadata=check(positive))
     rate_per_h: float | None = None
 
     def __post_init__(self) -> None:
+        part = PROCESS_FAULT_SIGNALS.get(self.kind)
+        if self.signal is None:
+            object.__setattr__(self, "signal", part or "conc")
+        elif part is not None and self.signal != part:
+            raise Invalid("signal", f"a {self.kind!r} fault acts on {part!r} only")
         allowed = _OPTIONS_OF_KIND.get(self.kind, ())
         for option in ("every_s", "size_std", "rate_per_h"):
             if getattr(self, option) is not None and option not in allowed:
@@ -110,7 +121,7 @@ class Fault:
 _TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0, "": 1.0}
 _TIME = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*(s|min|h|)\s*$")
 _FAULT = re.compile(
-    r"^\s*(?P<kind>[a-z]+)(?:/(?P<signal>[a-z_]+))?\s*@(?P<start>[^+]+)\+(?P<duration>[^:]+)"
+    r"^\s*(?P<kind>[a-z]+(?:-[a-z]+)*)(?:/(?P<signal>[a-z_]+))?\s*@(?P<start>[^+]+)\+(?P<duration>[^:]+)"
     r"(?::(?P<options>.*))?$"
 )
 
@@ -131,12 +142,12 @@ def _parse_one(text: str) -> Fault:
     where = f"--faults {text.strip()!r}"
     if match is None:
         raise SimulatorError(f"{where}: expected KIND[/SIGNAL]@START+DURATION[:OPTION=VALUE,...]")
-    kind, signal = match.group("kind"), match.group("signal") or "conc"
+    kind, signal = match.group("kind"), match.group("signal")
     if kind not in FAULT_KINDS:
         raise SimulatorError(
             f"{where}: unknown fault kind {kind!r}; known: {', '.join(FAULT_KINDS)}"
         )
-    if signal not in FAULT_SIGNALS:
+    if signal is not None and signal not in FAULT_SIGNALS:
         raise SimulatorError(
             f"{where}: unknown signal {signal!r}; known: {', '.join(FAULT_SIGNALS)}"
         )
@@ -202,5 +213,12 @@ class SignalFaults:
 
 
 def faults_of(faults: tuple[Fault, ...], signal: str) -> SignalFaults:
-    """The faults that act on ``signal``."""
-    return SignalFaults(tuple(f for f in faults if f.signal == signal))
+    """The instrument faults that act on ``signal``."""
+    return SignalFaults(
+        tuple(f for f in faults if f.signal == signal and f.kind not in PROCESS_FAULT_SIGNALS)
+    )
+
+
+def process_faults(faults: tuple[Fault, ...], kind: str) -> SignalFaults:
+    """The process faults of ``kind``."""
+    return SignalFaults(tuple(f for f in faults if f.kind == kind))

@@ -36,13 +36,20 @@ from sensor.shell.sitemodels import (
 from sensor.units import ZERO_CELSIUS_K
 from simulators.crystallizer import Crystallizer, PlantSolubility
 from simulators.errors import SimulatorError
-from simulators.faults import Fault, faults_of
+from simulators.faults import Fault, faults_of, process_faults
 from simulators.instruments import Analyzer, Channel, NormalStream, Reading, TemperatureTransmitter
 from simulators.kinetics import Mismatch, PlantKinetics
 from simulators.population import SizeGrid, mean_size_m, normal_counts
 from simulators.recipe import DcsInputs, Recipe
 from simulators.settings import SimulatorSettings, read_simulator_settings
 from simulators.thermal import ReactorTemperatureController, ThermalModel
+
+COLD_SIDE_K = 15.0
+"""How far below the site curve's trusted domain the plant's solubility reaches [K]: the site's
+correlation extrapolated, so that a fault that overcools the reactor (``cooling-open``, towards
+the coldest utility: -10 °C in the demo, 10 K below its curve's domain) can be simulated. Not
+above the domain: there the demo's solvent nears its boiling point. Recipes stay inside the
+trusted domain."""
 
 _STREAMS = (
     "mismatch",
@@ -171,7 +178,7 @@ class PlantSimulation:
         zone = site_metastable_zone(site, fit)
         reference_rate = settings.kinetics.primary_reference_rate_k_per_min / 60.0
         self.plant_solubility = PlantSolubility.from_site(
-            fit.curve, zone, mismatch.solubility_offset_k, reference_rate
+            fit.curve, zone, mismatch.solubility_offset_k, reference_rate, widening_k=COLD_SIDE_K
         )
         self._check_temperatures()
         compound = site.compound
@@ -242,10 +249,11 @@ class PlantSimulation:
             permissive=settings.recipe.permissive, remote_setpoint_c=charge.start_temp_c
         )
         self.finished = False
+        self._cooling_open = process_faults(faults, "cooling-open")
         self._build_instruments(streams)
 
     def _check_temperatures(self) -> None:
-        lo, hi = self.plant_solubility.range_k
+        lo, hi = self.plant_solubility.trusted_k
         recipe = self.settings.recipe
         for key, temp_c in (
             ("charge.start_temp_c", self.settings.charge.start_temp_c),
@@ -421,7 +429,10 @@ class PlantSimulation:
             raise SimulatorError(f"batch {self.batch_id} finished at {self.time_s:g} s")
         dt = self.dt_s
         crystallizer = self.crystallizer
-        crystallizer.advance(dt, self.jacket_setpoint_k)
+        jacket_target_k = self.jacket_setpoint_k
+        if self._cooling_open.kinds_at(self.time_s):
+            jacket_target_k = self.controller.output_range_k[0]  # the valve failed open
+        crystallizer.advance(dt, jacket_target_k)
         self.step_index += 1
         time_s = self.time_s
         temp = self.transmitters["temp"].read(time_s, dt, crystallizer.temp_k - ZERO_CELSIUS_K)

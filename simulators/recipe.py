@@ -27,6 +27,9 @@ temperature :math:`T_0` to the final one :math:`T_f` is linear or the Mullin-Ný
 .. math:: T(t) = T_0 - (T_0 - T_f)\,(t/\tau) \qquad\text{or}\qquad
           T(t) = T_0 - (T_0 - T_f)\,(t/\tau)^3
 
+or a table read from a profile CSV (``cooling_profile = "file"``, for example the plan of
+``sigmatrack plan --out``), linear between its rows and held at its last.
+
 **Remote setpoint.** During controlled cooling the recipe follows the remote reactor-temperature
 setpoint only while the permissive is on, the advisor's heartbeat counter has changed within
 ``heartbeat_timeout_s`` (the watchdog), the value is a finite number, and the phase has run less
@@ -49,6 +52,9 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
+from sensor.numerics import FloatArray
 from sensor.units import ZERO_CELSIUS_K
 from simulators.settings import RecipeSettings
 
@@ -119,6 +125,42 @@ def cooling_profile_time_s(
     if shape == "cubic":
         fraction = fraction ** (1.0 / 3.0)
     return fraction * duration_s
+
+
+def table_profile_k(elapsed_s: float, time_s: FloatArray, temp_k: FloatArray) -> float:
+    """A tabulated profile [K] at ``elapsed_s`` [s]: linear between the rows (``time_s``
+    increasing, ``temp_k`` never rising), held at the first before it and the last after it.
+
+    Examples
+    --------
+    >>> table_profile_k(150.0, np.array([0.0, 100.0, 200.0]), np.array([320.0, 310.0, 300.0]))
+    305.0
+    """
+    return float(np.interp(elapsed_s, time_s, temp_k))
+
+
+def table_profile_time_s(temp_k: float, time_s: FloatArray, temp_k_table: FloatArray) -> float:
+    """The inverse of :func:`table_profile_k` on a table that never rises: the earliest time [s]
+    at which the profile reaches ``temp_k`` [K] (0 above the start, the last time below the
+    end). On a hold (rows of one temperature) it is the hold's start, so a resume never skips
+    a hold.
+
+    Examples
+    --------
+    >>> table_profile_time_s(
+    ...     305.0, np.array([0.0, 100.0, 200.0, 300.0]), np.array([320.0, 310.0, 310.0, 300.0])
+    ... )
+    250.0
+    """
+    # the first row at or below temp_k; -temp_k_table is non-decreasing
+    row = int(np.searchsorted(-temp_k_table, -temp_k, side="left"))
+    if row == 0:
+        return 0.0
+    if row == len(time_s):
+        return float(time_s[-1])
+    upper, lower = temp_k_table[row - 1], temp_k_table[row]
+    fraction = (upper - temp_k) / (upper - lower)
+    return float(time_s[row - 1] + fraction * (time_s[row] - time_s[row - 1]))
 
 
 class Recipe:
@@ -235,22 +277,31 @@ class Recipe:
             )
         else:
             if self._was_remote:
-                self._profile_clock_s = cooling_profile_time_s(
-                    self.setpoint_k,
-                    self._seed_k,
-                    self._final_k,
-                    s.cooling_duration_s,
-                    s.cooling_profile,
-                )
+                self._profile_clock_s = self._profile_time_s(self.setpoint_k)
             self._profile_clock_s += dt_s
-            target = cooling_profile_k(
-                self._profile_clock_s,
-                self._seed_k,
-                self._final_k,
-                s.cooling_duration_s,
-                s.cooling_profile,
-            )
+            target = self._profile_k(self._profile_clock_s)
         step_down = s.max_cooling_rate_k_per_min / 60.0 * dt_s
         step_up = s.max_heating_rate_k_per_min / 60.0 * dt_s
         self.setpoint_k = min(max(target, self.setpoint_k - step_down), self.setpoint_k + step_up)
         self.remote_active = self._was_remote = remote
+
+    def _profile_k(self, elapsed_s: float) -> float:
+        """The recipe's own profile [K], ``elapsed_s`` [s] into it."""
+        s, table = self.settings, self.settings.profile_table
+        if table is not None:
+            if elapsed_s >= table.time_s[-1]:
+                return self._final_k  # the table ends within its resolution of it
+            value = table_profile_k(elapsed_s, table.time_s, table.temp_k)
+            return min(max(value, self._final_k), self._seed_k)
+        return cooling_profile_k(
+            elapsed_s, self._seed_k, self._final_k, s.cooling_duration_s, s.cooling_profile
+        )
+
+    def _profile_time_s(self, temp_k: float) -> float:
+        """Where on the recipe's own profile [s] it reaches ``temp_k`` [K]."""
+        s, table = self.settings, self.settings.profile_table
+        if table is not None:
+            return table_profile_time_s(temp_k, table.time_s, table.temp_k)
+        return cooling_profile_time_s(
+            temp_k, self._seed_k, self._final_k, s.cooling_duration_s, s.cooling_profile
+        )

@@ -16,10 +16,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from pathlib import Path
 from typing import Literal
 
 from sensor.errors import SiteConfigError
 from sensor.shell.config import SiteConfig
+from sensor.shell.labdata import ProfileData, read_profile_csv
 from sensor.shell.tomlschema import (
     Invalid,
     ascending_pair,
@@ -93,9 +95,20 @@ class ThermalSettings:
     rate_feedforward: bool = True
 
 
+_PROFILE_ENDS_TOLERANCE_K = 0.01
+"""How far a profile file's first and last temperatures may be from the recipe's seed and final
+temperatures [K]: the file's resolution, 0.01 °C."""
+
+
 @dataclass(frozen=True)
 class RecipeSettings:
-    """The batch recipe, as the DCS runs it."""
+    """The batch recipe, as the DCS runs it.
+
+    With ``cooling_profile = "file"`` the recipe's own profile is the table in
+    ``cooling_profile_file`` (a profile CSV, as ``sigmatrack plan --out`` writes it), read here
+    into ``profile_table``; it must run from ``seed_temp_c`` to ``final_temp_c`` and end within
+    ``cooling_max_s``, and ``cooling_duration_s`` is not used.
+    """
 
     dissolve_temp_c: float
     seed_temp_c: float
@@ -106,7 +119,8 @@ class RecipeSettings:
     cool_to_seed_rate_k_per_min: float = field(default=1.0, metadata=check(positive))
     seed_s: float = field(default=60.0, metadata=check(non_negative))
     seed_hold_s: float = field(default=1800.0, metadata=check(non_negative))
-    cooling_profile: Literal["linear", "cubic"] = "cubic"
+    cooling_profile: Literal["linear", "cubic", "file"] = "cubic"
+    cooling_profile_file: Path | None = None
     cooling_duration_s: float = field(default=21600.0, metadata=check(positive))
     cooling_max_s: float = field(default=32400.0, metadata=check(positive))
     final_hold_s: float = field(default=3600.0, metadata=check(non_negative))
@@ -116,14 +130,46 @@ class RecipeSettings:
     max_heating_rate_k_per_min: float = field(default=0.2, metadata=check(non_negative))
     heartbeat_timeout_s: float = field(default=30.0, metadata=check(positive))
     permissive: bool = False
+    profile_table: ProfileData | None = field(default=None, init=False, compare=False)
 
     def __post_init__(self) -> None:
         if not self.seed_temp_c < self.dissolve_temp_c:
             raise Invalid("seed_temp_c", "must be below dissolve_temp_c")
         if not self.final_temp_c < self.seed_temp_c:
             raise Invalid("final_temp_c", "must be below seed_temp_c (a cooling recipe)")
-        if self.cooling_max_s < self.cooling_duration_s:
+        if (self.cooling_profile == "file") != (self.cooling_profile_file is not None):
+            raise Invalid(
+                "cooling_profile_file", 'is needed with cooling_profile = "file", and only then'
+            )
+        if self.cooling_profile_file is not None:
+            table = read_profile_csv(self.cooling_profile_file)
+            self._check_table(table)
+            object.__setattr__(self, "profile_table", table)
+        elif self.cooling_max_s < self.cooling_duration_s:
             raise Invalid("cooling_max_s", "cannot be shorter than cooling_duration_s")
+
+    def _check_table(self, table: ProfileData) -> None:
+        """A profile file fits the recipe: from the seed to the final temperature, within
+        ``cooling_max_s``."""
+        rows = table.source
+        ends = (
+            (0, self.seed_temp_c, "starts", "seed_temp_c"),
+            (len(table.temp_k) - 1, self.final_temp_c, "ends", "final_temp_c"),
+        )
+        for row, temp_c, verb, key in ends:
+            got_c = float(rows.values["temp_c"][row])
+            if abs(got_c - temp_c) > _PROFILE_ENDS_TOLERANCE_K:
+                raise Invalid(
+                    "cooling_profile_file",
+                    f"{rows.file}, line {rows.line_of(row)}: the profile {verb} at {got_c:g} °C, "
+                    f"the recipe's {key} is {temp_c:g} °C",
+                )
+        if self.cooling_max_s < table.time_s[-1]:
+            raise Invalid(
+                "cooling_max_s",
+                f"cannot be shorter than the profile in {rows.file} "
+                f"({table.time_s[-1]:g} s, line {rows.line_of(len(table.time_s) - 1)})",
+            )
 
 
 @dataclass(frozen=True)

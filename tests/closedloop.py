@@ -346,7 +346,7 @@ class Comparison:
 
 
 class _TimedLaw:
-    """Wraps a law to time each ``propose`` (wall clock: for the benchmark's cost only)."""
+    """Wraps a law to time each ``propose`` with ``clock`` (for the benchmark's cost only)."""
 
     def __init__(self, law, clock) -> None:
         self._law = law
@@ -365,7 +365,7 @@ class _TimedLaw:
 
 def compare(site: SiteConfig, zone, setup, seed: int, clock=None) -> Comparison:
     """The advisor, the oracle and the tuned linear ramp on the plant of ``seed``; with a
-    ``clock`` (e.g. ``time.perf_counter``) each law update is timed."""
+    ``clock`` (e.g. ``time.process_time``) each law update is timed."""
     plant = closed_loop_plant(site, seed)
     pipeline = UnitPipeline(setup)
     timed = None

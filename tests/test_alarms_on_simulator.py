@@ -9,7 +9,11 @@ faults:
   link: every reading ``BadCommunicationError``); the seed window of an ordinary cool-down;
 - **process**, the recipe alone (no permissive): seeded at 56 °C, above the charge's
   saturation temperature (about 55 °C), so the seed dissolves, then cooled linearly in one hour
-  (far faster than the zone allows);
+  (far faster than the zone allows); early in the final hold at 10 °C the jacket's cooling
+  valve fails open for an hour (``cooling-open``): the jacket runs to the coldest brine
+  (-10 °C) and the reactor falls to about -4 °C, below the 0 °C down to which the site's curve
+  is trusted (lab data from 5 °C, 5 K margin), until the loop brings it back (overshooting to
+  about 18 °C, its output wound up at the steam limit);
 - **utility**, the advisor in control: the recipe seeds at 50 °C, so late that sigma passes
   through the seed window and out of it before the seed goes in; the jacket cannot go below
   35 °C (a brine supply failure), so the reactor stops following the advisor's setpoint; after
@@ -20,9 +24,8 @@ on-delay (off-delay) at every scan before it, and not for a scan longer (common 
 chattering protection: ISA-18.2's on/off delays; the engine's own state machine is tested alone
 in ``tests/controller/test_alarms.py``).
 
-Not covered here: ``solubility-extrapolated``, because the simulator refuses a recipe outside
-the plant's solubility table, which spans the very temperatures the site's curve is trusted at
-(its unit tests drive it instead).
+The plant's own solubility reaches 15 K below the site curve's trusted domain for such a fault
+(``simulators.plant.COLD_SIDE_K``); its recipes stay inside it.
 """
 
 from __future__ import annotations
@@ -41,7 +44,7 @@ from tests.closedloop import SCAN_S, closed_loop_plant, run_closed_loop
 from tests.synthetic import demo_site_and_zone
 
 H = 3600.0
-NOT_FROM_A_SIMULATOR_FAULT = {"solubility-extrapolated"}
+COOLING_OPEN = Fault("cooling-open", 3.25 * H, 1.0 * H)
 
 
 @pytest.fixture(scope="module")
@@ -64,12 +67,12 @@ def batches():
         keep_results=True,
     )
     process = run_closed_loop(
-        plant.simulation(
+        replace(plant, faults=(COOLING_OPEN,)).simulation(
             {
                 "seed_temp_c": 56.0,
                 "cooling_profile": "linear",
                 "cooling_duration_s": 3600.0,
-                "final_hold_s": 3600.0,
+                "final_hold_s": 2.5 * H,
             }
         ),
         UnitPipeline(setup),
@@ -101,8 +104,29 @@ def test_every_alarm_is_raised_and_cleared_by_a_fault(batches):
         for event, _k in _events(record):
             seen.setdefault(event.alarm, set()).add(event.kind.value)
     names = {d.name for d in UnitPipeline(setup).advisor.engine.definitions}
-    for name in sorted(names - NOT_FROM_A_SIMULATOR_FAULT):
+    for name in sorted(names):
         assert {"raised", "cleared"} <= seen.get(name, set()), name
+
+
+def test_the_open_cooling_valve_takes_the_batch_off_the_curve_and_back(batches):
+    _setup, records = batches
+    record = records["process"]
+    found = [
+        (record.time_s[k], record.phase[k], e.kind.value)
+        for e, k in _events(record)
+        if e.alarm == "solubility-extrapolated" and e.kind.value in ("raised", "cleared")
+    ]
+    assert [kind for _, _, kind in found] == ["raised", "cleared"], found
+    (raised_s, raised_in, _), (cleared_s, _, _) = found
+    assert raised_in == "final-hold"
+    assert COOLING_OPEN.start_s < raised_s < COOLING_OPEN.end_s  # the valve did it
+    assert cleared_s > COOLING_OPEN.end_s  # and the loop undid it once the valve closed
+    for name, other in records.items():  # no other batch leaves the curve
+        if name != "process":
+            assert not any(
+                e.alarm == "solubility-extrapolated" and e.kind is EventKind.RAISED
+                for e, _ in _events(other)
+            ), name
 
 
 def _held_for(record, k: int, name: str, holds) -> float:

@@ -1,4 +1,4 @@
-"""Reading lab data files: solubility points and polythermal cloud points.
+"""Lab and recipe data files: solubility points, polythermal cloud points, cooling profiles.
 
 The files are CSV with a header row. Lines starting with ``#`` and blank lines are skipped
 anywhere; columns other than the ones needed are ignored. Each value needed must be a finite
@@ -11,16 +11,25 @@ file               columns                                     units
 solubility         ``temp_c``, ``conc``                        °C, the unit given
 cloud points       ``conc``, ``rate_k_per_min``,               the unit given, K/min, °C
                    ``cloud_temp_c``
+cooling profile    ``time_min``, ``temp_c``                    min, °C
+                   (``cooling_rate_k_per_min`` written,
+                   not read: it is derived)
 =================  ==========================================  ============================
+
+The cooling profile is the one file format here that sigmatrack also writes
+(:func:`write_profile_csv`, for ``sigmatrack plan --out``) and the plant simulator's recipe
+reads (:func:`read_profile_csv`); it lives here, beside the other site data files, so that the
+writer and the reader are one piece of code (DEVELOPERS.md, "Profile CSV").
 """
 
 from __future__ import annotations
 
 import csv
 import math
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 
@@ -29,6 +38,7 @@ from sensor.numerics import FloatArray
 from sensor.units import (
     ConcentrationUnit,
     celsius_to_kelvin,
+    kelvin_to_celsius,
     per_minute_to_per_second,
 )
 
@@ -207,3 +217,100 @@ def read_cloud_points_csv(path: Path | str, unit: ConcentrationUnit) -> CloudPoi
                 f"rate_k_per_min must be positive; got {value:g}",
             )
     return CloudPointData(conc, per_minute_to_per_second(rate), cloud_temp_k, columns)
+
+
+PROFILE_COLUMNS = ("time_min", "temp_c", "cooling_rate_k_per_min")
+"""The profile CSV's header."""
+
+PROFILE_CAUTION = (
+    "Advisory reference profile from sigmatrack. Review it against the site's limits, "
+    "management of change and licensed practice before loading it into a recipe; the DCS "
+    "keeps control and the safety instrumented system keeps protection."
+)
+"""Written as the last comment line of every profile CSV."""
+
+
+@dataclass(frozen=True)
+class ProfileData:
+    """A cooling profile read from a profile CSV: setpoints at times from its start.
+
+    Attributes
+    ----------
+    time_s : times from the start [s]: 0 first, strictly increasing
+    temp_k : reactor-temperature setpoints [K], never rising
+    source : the columns as read, with their line numbers
+    """
+
+    time_s: FloatArray
+    temp_k: FloatArray
+    source: Columns
+
+
+def write_profile_csv(
+    stream: TextIO,
+    name: str,
+    time_s: FloatArray,
+    temp_k: FloatArray,
+    *,
+    comments: Iterable[str] = (),
+) -> None:
+    """Write a cooling profile as a profile CSV to an open text stream.
+
+    Parameters
+    ----------
+    stream : where to write
+    name : what made the profile (the first comment line)
+    time_s : times from the start [s]
+    temp_k : reactor-temperature setpoints at those times [K]
+    comments : further ``#`` lines, after the name and before the caution
+
+    Times are written to 0.01 min, temperatures to 0.01 °C and the cooling rate to the next row
+    to 0.0001 K/min (positive when cooling, 0 on the last row).
+    """
+    time = np.asarray(time_s, dtype=float)
+    temp = np.asarray(temp_k, dtype=float)
+    stream.write(f"# sigmatrack reference cooling profile: {name}\n")
+    for line in (*comments, PROFILE_CAUTION):
+        stream.write(f"# {line}\n")
+    writer = csv.writer(stream, lineterminator="\n")
+    writer.writerow(PROFILE_COLUMNS)
+    rates = np.append(-np.diff(temp) / np.diff(time) * 60.0, 0.0)
+    for t, c, rate in zip(time, kelvin_to_celsius(temp), rates, strict=True):
+        writer.writerow([f"{t / 60.0:.2f}", f"{c:.2f}", f"{rate + 0.0:.4f}"])
+
+
+def read_profile_csv(path: Path | str) -> ProfileData:
+    """Read a profile CSV (columns ``time_min``, ``temp_c``).
+
+    Raises
+    ------
+    DataFileError
+        Besides :func:`read_numeric_columns`' reasons: fewer than two rows, a first time other
+        than 0, a time not after the one before, or a temperature above the one before (a
+        cooling profile never rises); the message names the file and the line.
+    """
+    columns = read_numeric_columns(path, ("time_min", "temp_c"))
+    time_min = columns.values["time_min"]
+    temp_c = columns.values["temp_c"]
+    if len(time_min) < 2:
+        raise DataFileError(columns.file, None, "a profile needs at least two rows")
+    if time_min[0] != 0.0:
+        raise DataFileError(
+            columns.file, columns.line_of(0), f"time_min must start at 0; got {time_min[0]:g}"
+        )
+    for row in range(1, len(time_min)):
+        if time_min[row] <= time_min[row - 1]:
+            raise DataFileError(
+                columns.file,
+                columns.line_of(row),
+                f"time_min {time_min[row]:g} is not after {time_min[row - 1]:g} on line "
+                f"{columns.line_of(row - 1)}",
+            )
+        if temp_c[row] > temp_c[row - 1]:
+            raise DataFileError(
+                columns.file,
+                columns.line_of(row),
+                f"temp_c {temp_c[row]:g} is above {temp_c[row - 1]:g} on line "
+                f"{columns.line_of(row - 1)}: a cooling profile never rises",
+            )
+    return ProfileData(time_min * 60.0, celsius_to_kelvin(temp_c), columns)

@@ -9,7 +9,7 @@ standard deviations, 0 by default) under ``--sigma-max`` (default:
 ``controller.target_zone_rate_k_per_min``), no faster than ``guard.max_cooling_rate_k_per_min``
 (:func:`controller.optimal_profile.minimum_time_profile`). It is written as a profile CSV
 (DEVELOPERS.md, "Profile CSV"), which the simulator's recipe can follow
-(``simulator.recipe.cooling_profile = "file"``).
+(``simulator.recipe.cooling_profile = "file"`` with ``cooling_profile_file``).
 """
 
 from __future__ import annotations
@@ -22,12 +22,12 @@ import numpy as np
 
 from controller.errors import ControllerError
 from controller.optimal_profile import PlanSettings, minimum_time_profile
-from controller.profiles import write_profile_csv
 from sensor.crystallizer import ZETA0, ZETA3
 from sensor.errors import SigmatrackError
 from sensor.kalman import initial_state, initial_vector, seed_covariance
 from sensor.predictor import SigmaPredictor
 from sensor.shell.config import load_site_file
+from sensor.shell.labdata import write_profile_csv
 from sensor.shell.replay_command import ADVISORY, EXIT_FAILED
 from sensor.shell.sitesensor import pipeline_setup, site_zone
 from sensor.units import ZERO_CELSIUS_K, per_minute_to_per_second
@@ -138,14 +138,19 @@ def run_plan(args: argparse.Namespace) -> int:
         f"{result.peak:.4g}); {result.profile.duration_s / 3600:.2f} h against "
         f"{result.linear_duration_s / 3600:.2f} h for the shortest linear ramp",
     ]
+    profile = result.profile
     if args.out:
         try:
             with Path(args.out).open("w", encoding="utf-8", newline="") as stream:
-                write_profile_csv(result.profile, stream, comments=comments)
+                write_profile_csv(
+                    stream, profile.name, profile.time_s, profile.temp_k, comments=comments
+                )
         except OSError as error:
             raise PlanCommandError(f"{args.out}: cannot write: {error.strerror}") from None
     else:
-        write_profile_csv(result.profile, sys.stdout, comments=comments)
+        write_profile_csv(
+            sys.stdout, profile.name, profile.time_s, profile.temp_k, comments=comments
+        )
     print(
         f"plan: {result.profile.duration_s / 3600:.2f} h from {args.start_c:g} to "
         f"{final_k - ZERO_CELSIUS_K:g} °C (shortest linear ramp under the same cap "

@@ -1,4 +1,4 @@
-"""Reference profiles: linear, Mullin-Nývlt, and the CSV an engineer loads into a recipe.
+"""Reference profiles: linear and Mullin-Nývlt (their CSV: tests/shell/test_labdata.py).
 
 Outside reference: the controlled-cooling profile of J. W. Mullin and J. Nývlt, "Programmed
 cooling of batch crystallizers", Chem. Eng. Sci. 26 (1971) 369-377, in the form given by J. W.
@@ -11,8 +11,6 @@ numbers, not published data).
 
 from __future__ import annotations
 
-import csv
-import io
 import math
 
 import numpy as np
@@ -21,13 +19,10 @@ from scipy.integrate import solve_ivp
 
 from controller.errors import SettingsError
 from controller.profiles import (
-    CAUTION,
-    CSV_COLUMNS,
     CoolingProfile,
     linear_profile,
     mullin_nyvlt_fraction,
     mullin_nyvlt_profile,
-    write_profile_csv,
 )
 
 T0_K, TF_K, TAU_S = 323.15, 283.15, 4 * 3600.0
@@ -117,22 +112,6 @@ def test_mullin_nyvlt_keeps_supersaturation_constant_where_its_assumptions_hold(
     np.testing.assert_allclose(held, 1.0, atol=1e-6)
     ramped, _ = _supersaturation_along(linear)
     assert ramped.max() - ramped.min() > 1.0  # a linear ramp swings it by more than its mean
-
-
-def test_write_profile_csv_documents_itself_and_round_trips():
-    profile = linear_profile(T0_K, TF_K, 7200.0, points=3)
-    stream = io.StringIO()
-    write_profile_csv(profile, stream, comments=["site: demo", "made by a test"])
-    lines = stream.getvalue().splitlines()
-    comments = [line for line in lines if line.startswith("#")]
-    assert comments[0] == "# sigmatrack reference cooling profile: linear"
-    assert "# site: demo" in comments
-    assert f"# {CAUTION}" in comments
-    rows = list(csv.DictReader(line for line in lines if not line.startswith("#")))
-    assert tuple(rows[0]) == CSV_COLUMNS
-    assert [r["time_min"] for r in rows] == ["0.00", "60.00", "120.00"]
-    assert [r["temp_c"] for r in rows] == ["50.00", "30.00", "10.00"]
-    assert [r["cooling_rate_k_per_min"] for r in rows] == ["0.3333", "0.3333", "0.0000"]
 
 
 @pytest.mark.parametrize(

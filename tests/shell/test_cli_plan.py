@@ -9,8 +9,8 @@ import csv
 import numpy as np
 import pytest
 
-from controller.profiles import CSV_COLUMNS
 from sensor.shell.cli import main
+from sensor.shell.labdata import PROFILE_COLUMNS
 from tests.conftest import DEMO_SITE
 
 ARGS = ["plan", "--config", str(DEMO_SITE), "--start-c", "53", "--saturation-c", "55.2"]
@@ -28,7 +28,7 @@ def test_the_plan_is_a_profile_csv_under_the_guards_limits(tmp_path, capsys):
     text = out.read_text(encoding="utf-8")
     assert "Advisory reference profile" in text
     rows = _rows(out)
-    assert tuple(rows[0]) == CSV_COLUMNS
+    assert tuple(rows[0]) == PROFILE_COLUMNS
     time_min = np.array([float(r["time_min"]) for r in rows])
     temp_c = np.array([float(r["temp_c"]) for r in rows])
     rate = np.array([float(r["cooling_rate_k_per_min"]) for r in rows])

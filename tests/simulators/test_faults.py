@@ -6,11 +6,12 @@ import csv
 import io
 import itertools
 
+import numpy as np
 import pytest
 
 from simulators.errors import SimulatorError
 from simulators.faults import Fault, parse_fault_spec
-from simulators.plant import PlantSimulation
+from simulators.plant import COLD_SIDE_K, PlantSimulation
 from simulators.shell.historian import HistorianWriter
 
 CONC, TEMP = "CR301.AT3015.PV", "CR301.TT3011.PV"
@@ -26,6 +27,9 @@ def test_fault_spec_syntax():
     assert faults[2] == Fault("frozen", 90.0, 1200.0, "temp")
     assert faults[3].rate_per_h == -0.001
     assert parse_fault_spec("none") == ()
+    assert parse_fault_spec("cooling-open@2h+30min") == (
+        Fault("cooling-open", 7200.0, 1800.0, "jacket_temp"),
+    )
 
 
 @pytest.mark.parametrize(
@@ -39,6 +43,7 @@ def test_fault_spec_syntax():
         ("bad@1h+1h:every_s=5", r"every_s: does not apply to a 'bad' fault"),
         ("drift@1h+1h", r"rate_per_h: needed by a 'drift' fault"),
         ("spikes@1h+1h:size_std=x", r"option size_std needs a number"),
+        ("cooling-open/temp@1h+1h", r"signal: a 'cooling-open' fault acts on 'jacket_temp' only"),
     ],
 )
 def test_bad_fault_specs_are_refused(spec, message):
@@ -116,3 +121,41 @@ def test_drift_moves_the_analyzer_bias(demo_site, short_settings):
     sim.advance_to(3600.0)
     # 0.01 kg/kg per hour for an hour, plus the bias random walk (1e-6 per sqrt s: 6e-5 std)
     assert sim.truth().analyzer_bias - start == pytest.approx(0.01, abs=5e-4)
+
+
+def test_an_open_cooling_valve_overcools_the_jacket_whatever_the_loop_asks(
+    demo_site, short_settings
+):
+    # 100 min in, early in the short recipe's cubic cooling (still near 53 °C), the valve opens
+    # for 30 min
+    faults = parse_fault_spec("cooling-open@6000s+1800s")
+    sim = PlantSimulation.from_site(demo_site, seed=2, settings=short_settings, faults=faults)
+    truths, readings = {}, {}
+    while sim.time_s < 9000.0:
+        sample = sim.step()
+        truths[round(sample.time_s)] = sim.truth()
+        readings[round(sample.time_s)] = sample.readings
+    coldest_c = short_settings.thermal.jacket_setpoint_range_c[0]
+    before, during, after = truths[6000], truths[7700], truths[9000]
+    assert before.jacket_temp_c > 40.0
+    # 60 K at its 3 K/min rate limit is 20 min, then its 2 min lag: at the coldest by 28 min
+    assert during.jacket_temp_c == pytest.approx(coldest_c, abs=0.5)
+    assert during.temp_c < before.temp_c - 5.0  # the reactor follows the jacket down
+    assert during.jacket_setpoint_c > before.jacket_setpoint_c  # while the loop asks for heat
+    assert after.jacket_temp_c > coldest_c + 20.0  # the loop has the jacket back
+    # the instruments read true: the jacket transmitter reports the cold jacket
+    assert readings[7700]["jacket_temp"].value == pytest.approx(during.jacket_temp_c, abs=0.5)
+
+
+def test_the_plants_solubility_reaches_below_the_curves_trusted_range(demo_site):
+    sim = PlantSimulation.from_site(demo_site)
+    solubility = sim.plant_solubility
+    lo, _hi = solubility.range_k
+    trusted_lo, trusted_hi = solubility.trusted_k
+    assert trusted_lo - lo == pytest.approx(COLD_SIDE_K, abs=0.01)
+    assert solubility.range_k[1] == pytest.approx(trusted_hi, abs=0.01)  # not above it
+    # it is the site's correlation extrapolated: still falling with temperature, positive
+    temps = np.linspace(lo, trusted_lo, 50)
+    c_sat = np.array([solubility.c_sat(t) for t in temps])
+    assert np.all(c_sat > 0.0)
+    assert np.all(np.diff(c_sat) > 0.0)
