@@ -18,10 +18,17 @@ kind           what the instrument does                                    in th
                and keeps what it gained after the fault ends
 ``nan``        reports not-a-number with quality ``Good`` (an analyzer     ``nan``, ``Good``
                whose calibration model could not predict)
+``stuck-       keeps reporting its live value, but with the source         not visible: the CSV
+timestamp``    timestamp of its last report before the fault (a gateway    has one timestamp
+               or historian buffer that hangs)                             per row
+``clock-       reports its live value with a source timestamp ``lag_s``    not visible, as
+behind``       seconds behind (a gateway whose clock was set back)         above
 =============  ==========================================================  =====================
 
 When faults overlap on one signal, ``dropout`` wins over ``bad``, ``bad`` over ``nan``, ``nan``
-over ``frozen``, and ``frozen`` over the rest.
+over ``frozen``, and ``frozen`` over the rest. The two timestamp faults act only on the source
+timestamp the OPC UA plant server publishes (:mod:`simulators.shell.server`), whatever the
+value; ``stuck-timestamp`` wins over ``clock-behind``.
 
 On the command line (``sigmatrack simulate --faults SPEC``) faults are written
 
@@ -30,7 +37,7 @@ On the command line (``sigmatrack simulate --faults SPEC``) faults are written
     SPEC     = "none" | FAULT { ";" FAULT }
     FAULT    = KIND [ "/" SIGNAL ] "@" START "+" DURATION [ ":" OPTION { "," OPTION } ]
     START, DURATION = a number with a unit: 90s, 20min, 2.5h (a bare number is seconds)
-    OPTION   = every_s=NUMBER | size_std=NUMBER | rate_per_h=NUMBER
+    OPTION   = every_s=NUMBER | size_std=NUMBER | rate_per_h=NUMBER | lag_s=NUMBER
 
 for example ``dropout@5h+10min; spikes@3h+1h:every_s=120; frozen/temp@6h+20min``. The signal
 defaults to ``conc``.
@@ -46,7 +53,17 @@ from typing import Literal
 from sensor.shell.tomlschema import Invalid, check, non_negative, positive
 from simulators.errors import SimulatorError
 
-FaultKind = Literal["spikes", "dropout", "frozen", "bad", "uncertain", "drift", "nan"]
+FaultKind = Literal[
+    "spikes",
+    "dropout",
+    "frozen",
+    "bad",
+    "uncertain",
+    "drift",
+    "nan",
+    "stuck-timestamp",
+    "clock-behind",
+]
 FAULT_KINDS: tuple[str, ...] = (
     "spikes",
     "dropout",
@@ -55,11 +72,18 @@ FAULT_KINDS: tuple[str, ...] = (
     "uncertain",
     "drift",
     "nan",
+    "stuck-timestamp",
+    "clock-behind",
 )
 FaultSignal = Literal["temp", "jacket_temp", "conc"]
 FAULT_SIGNALS: tuple[str, ...] = ("temp", "jacket_temp", "conc")
 
-_OPTIONS_OF_KIND = {"spikes": ("every_s", "size_std"), "drift": ("rate_per_h",)}
+_OPTIONS_OF_KIND = {
+    "spikes": ("every_s", "size_std"),
+    "drift": ("rate_per_h",),
+    "clock-behind": ("lag_s",),
+}
+OPTIONS: tuple[str, ...] = ("every_s", "size_std", "rate_per_h", "lag_s")
 
 
 @dataclass(frozen=True)
@@ -76,6 +100,7 @@ class Fault:
     size_std : ``spikes`` only: spike height in noise standard deviations [-]
     rate_per_h : ``drift`` only: growth of the calibration offset [kg/kg solvent per h] for
         ``conc``, [K/h] for temperatures; either sign
+    lag_s : ``clock-behind`` only: how far the source timestamps lag [s]
     """
 
     kind: FaultKind
@@ -85,14 +110,17 @@ class Fault:
     every_s: float | None = field(default=None, metadata=check(positive))
     size_std: float | None = field(default=None, metadata=check(positive))
     rate_per_h: float | None = None
+    lag_s: float | None = field(default=None, metadata=check(positive))
 
     def __post_init__(self) -> None:
         allowed = _OPTIONS_OF_KIND.get(self.kind, ())
-        for option in ("every_s", "size_std", "rate_per_h"):
+        for option in OPTIONS:
             if getattr(self, option) is not None and option not in allowed:
                 raise Invalid(option, f"does not apply to a {self.kind!r} fault")
         if self.kind == "drift" and self.rate_per_h is None:
             raise Invalid("rate_per_h", "needed by a 'drift' fault")
+        if self.kind == "clock-behind" and self.lag_s is None:
+            raise Invalid("lag_s", "needed by a 'clock-behind' fault")
         if self.kind == "spikes":
             object.__setattr__(self, "every_s", 60.0 if self.every_s is None else self.every_s)
             object.__setattr__(self, "size_std", 8.0 if self.size_std is None else self.size_std)
@@ -110,7 +138,7 @@ class Fault:
 _TIME_UNITS_S = {"s": 1.0, "min": 60.0, "h": 3600.0, "": 1.0}
 _TIME = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*(s|min|h|)\s*$")
 _FAULT = re.compile(
-    r"^\s*(?P<kind>[a-z]+)(?:/(?P<signal>[a-z_]+))?\s*@(?P<start>[^+]+)\+(?P<duration>[^:]+)"
+    r"^\s*(?P<kind>[a-z-]+)(?:/(?P<signal>[a-z_]+))?\s*@(?P<start>[^+]+)\+(?P<duration>[^:]+)"
     r"(?::(?P<options>.*))?$"
 )
 
@@ -144,7 +172,7 @@ def _parse_one(text: str) -> Fault:
     for item in filter(None, (part.strip() for part in (match.group("options") or "").split(","))):
         name, _, value = item.partition("=")
         name = name.strip()
-        if name not in ("every_s", "size_std", "rate_per_h"):
+        if name not in OPTIONS:
             raise SimulatorError(f"{where}: unknown option {name!r}")
         try:
             number = float(value)
@@ -157,7 +185,7 @@ def _parse_one(text: str) -> Fault:
     duration = parse_duration_s(match.group("duration"), f"{where}: duration")
     if duration <= 0.0:
         raise SimulatorError(f"{where}: duration must be positive")
-    for name in ("every_s", "size_std"):
+    for name in ("every_s", "size_std", "lag_s"):
         if name in options and options[name] <= 0.0:
             raise SimulatorError(f"{where}: option {name} must be positive")
     try:
