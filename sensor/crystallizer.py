@@ -477,7 +477,7 @@ def step_into(
 
 
 @numba.njit(cache=True)
-def stop_moments(x: FloatArray) -> None:
+def stop_moments(x: FloatArray) -> bool:
     r"""Bring a filter's mean back onto physical moments, in place: a negative
     :math:`\zeta_k` is set to zero, and a negative :math:`\zeta_3`'s deficit is taken from
     :math:`c`, so that the dissolved plus crystallised solute :math:`c + \zeta_3` is kept.
@@ -485,13 +485,17 @@ def stop_moments(x: FloatArray) -> None:
     The mean's counterpart of :func:`dissolve_into`, after a predict or an update (the sigma
     points' spread and the analyzer's correlation with the solids can carry it below zero); a
     clamp, continuous in ``x``. Both filter paths call it at the same places
-    (``sensor.kalman`` and the replay kernel ``sensor.batchfilter``), so they agree.
+    (``sensor.kalman`` and the replay kernel ``sensor.batchfilter``), so they agree. Returns
+    whether it changed ``x``.
     """
     if x[ZETA3] < 0.0:
         x[CONC] += x[ZETA3]
+    changed = False
     for j in range(ZETA0, ZETA3 + 1):
         if x[j] < 0.0:
             x[j] = 0.0
+            changed = True
+    return changed
 
 
 @numba.njit(cache=True)

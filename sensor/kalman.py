@@ -520,9 +520,10 @@ class CrystallizerFilter:
             ) from None
         x, P = self._get()
         x = x.copy()
-        stop_moments(x)
+        stopped = stop_moments(x)
         self._set(x, 0.5 * (P + P.T))
-        self._redraw()  # filterpy drew the sigma points around the mean before the stop
+        if stopped:
+            self._redraw()  # filterpy drew the sigma points around the mean before the stop
 
     def _seed(self) -> None:
         x, P = self._get()
