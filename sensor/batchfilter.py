@@ -33,7 +33,7 @@ from typing import NamedTuple
 import numba
 import numpy as np
 
-from sensor.crystallizer import CONC, TEMP, ZETA0, step_points
+from sensor.crystallizer import CONC, TEMP, ZETA0, step_points, stop_moments
 from sensor.errors import SigmatrackError
 from sensor.kalman import (
     initial_state,
@@ -295,6 +295,7 @@ def _predict(dt, jacket, s: KernelSetup, w: Workspace) -> bool:
                 acc += s.wc[i] * (sigf[i, a] - x[a]) * (sigf[i, b] - x[b])
             P[a, b] = acc + w.q[a, b]
             P[b, a] = P[a, b]
+    stop_moments(x)  # as CrystallizerFilter._predict does, before the sigma points are drawn again
     return True
 
 
@@ -343,6 +344,7 @@ def _update(z, channel: int, r: float, s: KernelSetup, w: Workspace) -> None:
             value = P[a, c] - gain[a] * var * gain[c]
             P[a, c] = value
             P[c, a] = value
+    stop_moments(x)  # as CrystallizerFilter._update does
 
 
 @numba.njit(cache=True)

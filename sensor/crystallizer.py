@@ -38,7 +38,15 @@ crystallisation is neglected (dilute systems; the temperature state's process no
 Before seeding or nucleation every moment is zero and the model reduces to the solute mass balance
 (:math:`c` constant) and the heat balance. Seeding adds the seed's moments at once
 (:func:`seed_moments`). Dissolution (:math:`\sigma < 0`) shrinks crystals at :math:`k_d \sigma`;
-the moments equations stop being exact when crystals vanish (fines dissolving completely).
+the moments equations stop being exact when crystals vanish (fines dissolving completely), and
+left alone they would carry the moments below zero (negative solids, and solute beyond the
+charge). So the model stops smoothly: in a dissolving Euler sub-step a falling moment decays
+exponentially instead of linearly (:func:`dissolve_into`), tending to zero as the crystals
+vanish and never crossing it, with :math:`c + \zeta_3` conserved exactly. The stop lives in
+:func:`step_points`, which the live filter and the replay kernel both step through, and it is
+continuous, so both paths agree to rounding. (A common-practice closure, not from [1]_;
+:func:`rates` and :func:`step_jacobian`, which the forecast and the EKF's Jacobian use, keep the
+plain equations.)
 
 Discretisation: explicit Euler in sub-steps of at most ``max_step_s`` (first order; at the default
 1 s the error is orders of magnitude below the kinetics' own uncertainty, see
@@ -478,6 +486,51 @@ def step_into(
 
 
 @numba.njit(cache=True)
+def stop_moments(x: FloatArray) -> bool:
+    r"""Bring a filter's mean back onto physical moments, in place: a negative
+    :math:`\zeta_k` is set to zero, and a negative :math:`\zeta_3`'s deficit is taken from
+    :math:`c`, so that the dissolved plus crystallised solute :math:`c + \zeta_3` is kept.
+
+    The mean's counterpart of :func:`dissolve_into`, after a predict or an update (the sigma
+    points' spread and the analyzer's correlation with the solids can carry it below zero); a
+    clamp, continuous in ``x``. Both filter paths call it at the same places
+    (``sensor.kalman`` and the replay kernel ``sensor.batchfilter``), so they agree. Returns
+    whether it changed ``x``.
+    """
+    if x[ZETA3] < 0.0:
+        x[CONC] += x[ZETA3]
+    changed = False
+    for j in range(ZETA0, ZETA3 + 1):
+        if x[j] < 0.0:
+            x[j] = 0.0
+            changed = True
+    return changed
+
+
+@numba.njit(cache=True)
+def dissolve_into(x: FloatArray, h: float, slope: FloatArray) -> None:
+    r"""The smooth stop of a dissolving Euler sub-step of ``h`` [s]: replace the moments' rates
+    in ``slope`` so that no positive :math:`\zeta_k` crosses zero.
+
+    A moment :math:`\zeta_k > 0` that falls at the rate :math:`r_k = k G \zeta_{k-1} / L_r < 0`
+    moves to :math:`\zeta_k \exp(h r_k / \zeta_k)` (first-order equal to the Euler step, and
+    tending to zero, never below, as the crystals vanish); one at or below zero that would fall
+    further stays where it is. Both are continuous in ``x``, so rounding differences between
+    two paths are not amplified. :math:`dc/dt = -d\zeta_3/dt` is kept, so :math:`c + \zeta_3`
+    is conserved exactly.
+    """
+    for k in range(1, 4):
+        j = ZETA0 + k
+        rate = slope[j]
+        if rate < 0.0:
+            if x[j] > 0.0:
+                slope[j] = x[j] * (math.exp(h * rate / x[j]) - 1.0) / h
+            else:
+                slope[j] = 0.0
+    slope[CONC] = -slope[ZETA3]
+
+
+@numba.njit(cache=True)
 def step_points(
     points: FloatArray,
     skip: np.ndarray,
@@ -525,6 +578,8 @@ def step_points(
             rates_with(row, jacket_temp_k, g, b, grows, params, slope)
             if sub == 0 and i == 0:
                 first_slope[:] = slope
+            if not grows:
+                dissolve_into(row, h, slope)
             for j in range(ZETA3 + 1):  # the growth scale and the bias do not move
                 row[j] += h * slope[j]
 

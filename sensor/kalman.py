@@ -66,6 +66,7 @@ from sensor.crystallizer import (
     rates,
     step,
     step_jacobian,
+    stop_moments,
 )
 from sensor.errors import SigmatrackError
 from sensor.numerics import FloatArray, get_array, put_array
@@ -518,7 +519,11 @@ class CrystallizerFilter:
                 f"t = {time_s:.1f} s: the covariance is not positive-definite or not finite"
             ) from None
         x, P = self._get()
+        x = x.copy()
+        stopped = stop_moments(x)
         self._set(x, 0.5 * (P + P.T))
+        if stopped:
+            self._redraw()  # filterpy drew the sigma points around the mean before the stop
 
     def _seed(self) -> None:
         x, P = self._get()
@@ -555,6 +560,8 @@ class CrystallizerFilter:
                 f"t = {time_s:.1f} s: the {channel} update met a singular or non-finite covariance"
             ) from None
         x, P = self._get()
+        x = x.copy()
+        stop_moments(x)
         self._set(x, 0.5 * (P + P.T))
         return UpdateInfo(innovation, var, nis, gated=False)
 

@@ -18,10 +18,17 @@ kind           what the instrument does                                    in th
                and keeps what it gained after the fault ends
 ``nan``        reports not-a-number with quality ``Good`` (an analyzer     ``nan``, ``Good``
                whose calibration model could not predict)
+``stuck-       keeps reporting its live value, but with the source         not visible: the CSV
+timestamp``    timestamp of its last report before the fault (a gateway    has one timestamp
+               or historian buffer that hangs)                             per row
+``clock-       reports its live value with a source timestamp ``lag_s``    not visible, as
+behind``       seconds behind (a gateway whose clock was set back)         above
 =============  ==========================================================  =====================
 
 When faults overlap on one signal, ``dropout`` wins over ``bad``, ``bad`` over ``nan``, ``nan``
-over ``frozen``, and ``frozen`` over the rest.
+over ``frozen``, and ``frozen`` over the rest. The two timestamp faults act only on the source
+timestamp the OPC UA plant server publishes (:mod:`simulators.shell.server`), whatever the
+value; ``stuck-timestamp`` wins over ``clock-behind``.
 
 A process fault acts on the plant itself, its instruments reading true. There is one:
 
@@ -38,7 +45,7 @@ On the command line (``sigmatrack simulate --faults SPEC``) faults are written
     SPEC     = "none" | FAULT { ";" FAULT }
     FAULT    = KIND [ "/" SIGNAL ] "@" START "+" DURATION [ ":" OPTION { "," OPTION } ]
     START, DURATION = a number with a unit: 90s, 20min, 2.5h (a bare number is seconds)
-    OPTION   = every_s=NUMBER | size_std=NUMBER | rate_per_h=NUMBER
+    OPTION   = every_s=NUMBER | size_std=NUMBER | rate_per_h=NUMBER | lag_s=NUMBER
 
 for example ``dropout@5h+10min; spikes@3h+1h:every_s=120; frozen/temp@6h+20min;
 cooling-open@7h+30min``. The signal defaults to ``conc`` (for a process fault, to its part).
@@ -56,7 +63,16 @@ from sensor.shell.tomlschema import Invalid, check, non_negative, positive
 from simulators.errors import SimulatorError
 
 FaultKind = Literal[
-    "spikes", "dropout", "frozen", "bad", "uncertain", "drift", "nan", "cooling-open"
+    "spikes",
+    "dropout",
+    "frozen",
+    "bad",
+    "uncertain",
+    "drift",
+    "nan",
+    "stuck-timestamp",
+    "clock-behind",
+    "cooling-open",
 ]
 FAULT_KINDS: tuple[str, ...] = typing.get_args(FaultKind)
 PROCESS_FAULT_SIGNALS = {"cooling-open": "jacket_temp"}
@@ -64,7 +80,12 @@ PROCESS_FAULT_SIGNALS = {"cooling-open": "jacket_temp"}
 FaultSignal = Literal["temp", "jacket_temp", "conc"]
 FAULT_SIGNALS: tuple[str, ...] = ("temp", "jacket_temp", "conc")
 
-_OPTIONS_OF_KIND = {"spikes": ("every_s", "size_std"), "drift": ("rate_per_h",)}
+_OPTIONS_OF_KIND = {
+    "spikes": ("every_s", "size_std"),
+    "drift": ("rate_per_h",),
+    "clock-behind": ("lag_s",),
+}
+OPTIONS: tuple[str, ...] = ("every_s", "size_std", "rate_per_h", "lag_s")
 
 
 @dataclass(frozen=True)
@@ -82,6 +103,7 @@ class Fault:
     size_std : ``spikes`` only: spike height in noise standard deviations [-]
     rate_per_h : ``drift`` only: growth of the calibration offset [kg/kg solvent per h] for
         ``conc``, [K/h] for temperatures; either sign
+    lag_s : ``clock-behind`` only: how far the source timestamps lag [s]
     """
 
     kind: FaultKind
@@ -91,6 +113,7 @@ class Fault:
     every_s: float | None = field(default=None, metadata=check(positive))
     size_std: float | None = field(default=None, metadata=check(positive))
     rate_per_h: float | None = None
+    lag_s: float | None = field(default=None, metadata=check(positive))
 
     def __post_init__(self) -> None:
         part = PROCESS_FAULT_SIGNALS.get(self.kind)
@@ -99,11 +122,13 @@ class Fault:
         elif part is not None and self.signal != part:
             raise Invalid("signal", f"a {self.kind!r} fault acts on {part!r} only")
         allowed = _OPTIONS_OF_KIND.get(self.kind, ())
-        for option in ("every_s", "size_std", "rate_per_h"):
+        for option in OPTIONS:
             if getattr(self, option) is not None and option not in allowed:
                 raise Invalid(option, f"does not apply to a {self.kind!r} fault")
         if self.kind == "drift" and self.rate_per_h is None:
             raise Invalid("rate_per_h", "needed by a 'drift' fault")
+        if self.kind == "clock-behind" and self.lag_s is None:
+            raise Invalid("lag_s", "needed by a 'clock-behind' fault")
         if self.kind == "spikes":
             object.__setattr__(self, "every_s", 60.0 if self.every_s is None else self.every_s)
             object.__setattr__(self, "size_std", 8.0 if self.size_std is None else self.size_std)
@@ -155,7 +180,7 @@ def _parse_one(text: str) -> Fault:
     for item in filter(None, (part.strip() for part in (match.group("options") or "").split(","))):
         name, _, value = item.partition("=")
         name = name.strip()
-        if name not in ("every_s", "size_std", "rate_per_h"):
+        if name not in OPTIONS:
             raise SimulatorError(f"{where}: unknown option {name!r}")
         try:
             number = float(value)
@@ -168,7 +193,7 @@ def _parse_one(text: str) -> Fault:
     duration = parse_duration_s(match.group("duration"), f"{where}: duration")
     if duration <= 0.0:
         raise SimulatorError(f"{where}: duration must be positive")
-    for name in ("every_s", "size_std"):
+    for name in ("every_s", "size_std", "lag_s"):
         if name in options and options[name] <= 0.0:
             raise SimulatorError(f"{where}: option {name} must be positive")
     try:

@@ -18,6 +18,7 @@ instrument's own generator, so adding a fault to one instrument never changes an
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections import deque
 from dataclasses import dataclass
@@ -42,10 +43,13 @@ class Reading:
     value : in plant units (°C, the analyzer's unit, a phase value, ...)
     status : OPC UA StatusCode name (``Good``, ``UncertainSensorNotAccurate``,
         ``BadSensorFailure``, ...)
+    source_time_s : the source timestamp it carries, from the start of the batch [s]; ``None``:
+        the time it is reported (a timestamp fault sets another)
     """
 
     value: float | int | str | bool
     status: str = GOOD
+    source_time_s: float | None = None
 
 
 class NormalStream:
@@ -92,14 +96,28 @@ class Channel:
         self.value_range = value_range
         self.sample_interval_s = sample_interval_s
         self.last: Reading | None = None
+        self._stamped_s: float | None = None
 
     def drift_per_s(self, time_s: float) -> float:
         """Sum of the active drift faults' rates, per second (their unit per hour / 3600)."""
         return sum(f.rate_per_h for f in self.faults.active("drift", time_s)) / 3600.0  # type: ignore[misc]
 
     def report(self, time_s: float, raw: float) -> Reading | None:
-        """The reading reported at ``time_s`` [s] for the raw measurement ``raw``."""
+        """The reading reported at ``time_s`` [s] for the raw measurement ``raw``, with the
+        source timestamp a timestamp fault gives it."""
         kinds = self.faults.kinds_at(time_s) if self.faults.faults else frozenset()
+        reading = self._value(time_s, raw, kinds)
+        if reading is None:
+            return None
+        if "stuck-timestamp" in kinds and self._stamped_s is not None:
+            return dataclasses.replace(reading, source_time_s=self._stamped_s)
+        self._stamped_s = time_s
+        behind = self.faults.active("clock-behind", time_s) if kinds else ()
+        if behind:
+            return dataclasses.replace(reading, source_time_s=time_s - (behind[0].lag_s or 0.0))
+        return reading
+
+    def _value(self, time_s: float, raw: float, kinds: frozenset[str]) -> Reading | None:
         if "dropout" in kinds:
             return None
         if "nan" in kinds and "bad" not in kinds:

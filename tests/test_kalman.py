@@ -13,6 +13,7 @@ from scipy import linalg, stats
 
 from sensor.crystallizer import CONC, TEMP, Kinetics, build_model
 from sensor.kalman import CrystallizerFilter, FilterTuning, Measurements, process_noise
+from sensor.numerics import get_array, put_array
 from tests.synthetic import demo_setup, demo_site_and_zone
 
 JACKET_K = 300.0
@@ -187,7 +188,8 @@ def test_a_covariance_gone_non_finite_is_a_filter_error_naming_the_time(kind):
     f = _clear_solution_filter(kind)
     f.start(0.0, 320.0, 0.30, JACKET_K)
     state = f.checkpoint()
-    state["events"][-1]["P"] = [["nan"] * len(row) for row in state["events"][-1]["P"]]
+    n = get_array(state["events"][-1]["P"]).shape[0]
+    state["events"][-1]["P"] = put_array(np.full((n, n), np.nan))
     f.restore(state)
     with pytest.raises(FilterError, match=r"t = 10\.0 s"):
         f.advance(10.0, JACKET_K, 320.0)

@@ -22,8 +22,9 @@ heartbeat                 Int32         writable (the advisor's counter)
 
 A write of another data type is refused by the server (``BadTypeMismatch``). Source timestamps
 follow the one simulated clock, which runs ``speed`` times faster than the wall clock from the
-moment the server starts; server timestamps are the wall clock. Until a tag's first sample its
-status is ``BadWaitingForInitialData``. The server listens on a loopback address only.
+moment the server starts, except where a timestamp fault (:mod:`simulators.faults`) holds a
+reading's source timestamp back; server timestamps are the wall clock. Until a tag's first sample
+its status is ``BadWaitingForInitialData``. The server listens on a loopback address only.
 
 This server simulates a plant for tests and demonstrations. It is not a DCS and has no safety
 function.
@@ -346,7 +347,8 @@ class PlantServer:
                     latest[signal] = (reading, sample.time_s)
             for signal, (reading, time_s) in latest.items():
                 if signal not in INPUT_SIGNALS:
-                    await self._write(served, signal, reading, sim.timestamp(time_s))
+                    stamp_s = time_s if reading.source_time_s is None else reading.source_time_s
+                    await self._write(served, signal, reading, sim.timestamp(stamp_s))
             if sim.finished:
                 served.batches_done += 1
                 _log.info("batch %s finished", sim.batch_id)

@@ -30,6 +30,9 @@ def test_fault_spec_syntax():
     assert parse_fault_spec("cooling-open@2h+30min") == (
         Fault("cooling-open", 7200.0, 1800.0, "jacket_temp"),
     )
+    stamps = parse_fault_spec("stuck-timestamp/temp@2h+5min; clock-behind@3h+10min:lag_s=300")
+    assert stamps[0] == Fault("stuck-timestamp", 7200.0, 300.0, "temp")
+    assert stamps[1] == Fault("clock-behind", 10800.0, 600.0, "conc", lag_s=300.0)
 
 
 @pytest.mark.parametrize(
@@ -42,6 +45,9 @@ def test_fault_spec_syntax():
         ("bad@1h+0s", r"duration must be positive"),
         ("bad@1h+1h:every_s=5", r"every_s: does not apply to a 'bad' fault"),
         ("drift@1h+1h", r"rate_per_h: needed by a 'drift' fault"),
+        ("clock-behind@1h+1h", r"lag_s: needed by a 'clock-behind' fault"),
+        ("clock-behind@1h+1h:lag_s=0", r"option lag_s must be positive"),
+        ("stuck-timestamp@1h+1h:lag_s=5", r"lag_s: does not apply to a 'stuck-timestamp' fault"),
         ("spikes@1h+1h:size_std=x", r"option size_std needs a number"),
         ("cooling-open/temp@1h+1h", r"signal: a 'cooling-open' fault acts on 'jacket_temp' only"),
     ],
