@@ -23,8 +23,12 @@ heartbeat                 Int32         writable (the advisor's counter)
 A write of another data type is refused by the server (``BadTypeMismatch``). Source timestamps
 follow the one simulated clock, which runs ``speed`` times faster than the wall clock from the
 moment the server starts, except where a timestamp fault (:mod:`simulators.faults`) holds a
-reading's source timestamp back; server timestamps are the wall clock. Until a tag's first sample
-its status is ``BadWaitingForInitialData``. The server listens on a loopback address only.
+reading's source timestamp back; server timestamps are the wall clock. The writable tags
+(:data:`INPUT_SIGNALS`) carry their writer's clock: asyncua stamps a client's write with the wall
+clock, and the server's own initial values of them are stamped with it too, so that a client
+which wrote them before the server was restarted never sees their timestamps go backwards.
+Until a tag's first sample its status is ``BadWaitingForInitialData``. The server listens on a
+loopback address only.
 
 This server simulates a plant for tests and demonstrations. It is not a DCS and has no safety
 function.
@@ -315,7 +319,8 @@ class PlantServer:
             "batch_id": Reading(sim.batch_id),
         }
         for signal in served.nodes:
-            await self._write(served, signal, initial.get(signal), now)
+            stamp = datetime.now(UTC) if signal in INPUT_SIGNALS else now
+            await self._write(served, signal, initial.get(signal), stamp)
 
     async def _read_inputs(self, served: _ServedUnit) -> None:
         values = {}

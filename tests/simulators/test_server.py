@@ -185,3 +185,34 @@ async def _exercise_setpoint(site, settings):
         # the recipe's working setpoint, published to 1 mK, one scan behind at most (cooling
         # at most 1 K/min: 1/60 K per 1 s scan)
         assert value.Value.Value == pytest.approx(plant.truth().setpoint_c, abs=0.05)
+
+
+WRITTEN_TAGS = {
+    "CR301.ADVISOR_PERMIT": ua.Variant(True, ua.VariantType.Boolean),
+    "CR301.TIC3011.RSP": ua.Variant(30.0, ua.VariantType.Double),
+    "CR301.ADVISOR_HEARTBEAT": ua.Variant(7, ua.VariantType.Int32),
+}
+"""The demo unit's writable tags (the simulator's ``INPUT_SIGNALS``) and a value for each."""
+
+
+def test_a_restarted_server_never_stamps_a_written_tag_before_its_last_write(
+    demo_site, short_settings
+):
+    """The writable tags carry their writer's clock (asyncua stamps a client's write with the
+    wall clock); the server's own first values of them after a restart carry it too, so that a
+    client that wrote them before the restart sees no timestamp go backwards."""
+    plant = _cooling_plant(demo_site, short_settings, ())
+
+    async def exercise():
+        written = {}
+        async with _served(demo_site, plant, 40.0) as (client, _server):
+            for name, variant in WRITTEN_TAGS.items():
+                await _node(client, name).write_value(variant)
+                value = await _node(client, name).read_data_value(raise_on_bad_status=False)
+                written[name] = value.SourceTimestamp
+        async with _served(demo_site, plant, 40.0) as (client, _server):
+            for name, before in written.items():
+                value = await _node(client, name).read_data_value(raise_on_bad_status=False)
+                assert value.SourceTimestamp >= before, f"{name} goes back after the restart"
+
+    asyncio.run(asyncio.wait_for(exercise(), timeout=60.0))
