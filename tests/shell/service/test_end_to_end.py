@@ -19,6 +19,7 @@ from sensor.shell.store import ProposalRow, Store, read_batch
 from simulators.settings import read_simulator_settings
 from tests.shell.opcua.conftest import free_port, plant_at, run, wait_until
 from tests.shell.service.harness import (
+    MEASURED,
     Served,
     published_measured,
     service_site,
@@ -153,7 +154,8 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
             await wait_until(lambda: writer.status().queued_rows == 0, 20.0, "the queue drained")
             await asyncio.sleep(1.0)
         finally:
-            told_to_stop.append(max(t for _u, _s, t, _v in published).timestamp())
+            # the plant's time (its writable tags carry the wall clock)
+            told_to_stop.append(max(t for _u, s, t, _v in published if s in MEASURED).timestamp())
             stop.set()
             status = await running
             await served.__aexit__()
