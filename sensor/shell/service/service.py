@@ -8,8 +8,9 @@
                                                              checkpoints (periodic) ─┘
 
 **Ticks.** A unit is stepped as soon as a new reactor temperature of it arrives (its scan),
-at most once per 0.9 ``service.tick_s``, and in any case a tick after its previous step (so
-that an outage or a silent tag is noticed and stepped through). Where no scan arrives, the
+at most once per 0.9 ``service.tick_s``, and in any case a tick after its previous step
+without a scan, 1.5 ticks after one on a scan (so that an outage or a silent tag is noticed
+and stepped through, and a scan due about now is waited for). Where no scan arrives, the
 units are spread evenly across the tick (unit ``i`` of ``n`` at ``i/n`` of it), so that their
 work, their publishes and their writes never pile up in one instant; where the plant spreads
 its scans, so are the steps. A step's time is the clock's time when it runs
@@ -102,6 +103,11 @@ POLL_S = 0.01
 MIN_GAP_TICKS = 0.9
 """A unit is stepped at most once per this share of a tick, however often its values come
 (a little under one, so that a scan arriving a little early is not held for a whole tick)."""
+AFTER_SCAN_TICKS = 1.5
+"""After a step on a new scan, the next step without one waits this many ticks (more than one,
+so that a scan that comes every tick, a little late, is waited for rather than raced by the
+tick: otherwise the tick steps first, the scan then waits out ``MIN_GAP_TICKS``, and the
+readings' age drifts up to a whole tick and back)."""
 CLOSE_TIMEOUT_S = 30.0
 """Longest wait for the store to make every row durable when stopping [s]."""
 
@@ -340,6 +346,7 @@ class Service:
         count = len(self.units)
         index_of = {unit.unit_id: i for i, unit in enumerate(self.units)}
         due: list[float] = []
+        on_scan = [False] * count
         while not stop.is_set():
             now = clock.now_s()
             if now is None:
@@ -352,6 +359,7 @@ class Service:
                 i = index_of[unit_id]
                 soonest = self.units[i].last_time_s + MIN_GAP_TICKS * tick
                 due[i] = min(due[i], max(now, soonest))
+                on_scan[i] = True
             index = min(range(count), key=due.__getitem__)
             if due[index] > now:
                 await _wait(stop, min(due[index] - now, POLL_S * clock.speed) / clock.speed)
@@ -359,7 +367,8 @@ class Service:
             missed = math.floor((now - due[index]) / tick)
             if missed > 0:
                 self._late += missed
-            due[index] = now + tick
+            due[index] = now + tick * (AFTER_SCAN_TICKS if on_scan[index] else 1.0)
+            on_scan[index] = False
             await self._step(self.units[index], now)
 
     async def _step(self, unit: UnitRunner, time_s: float) -> None:
