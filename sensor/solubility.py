@@ -442,20 +442,34 @@ class SolubilityCurve:
     def dc_sat_dtemp(self, temp_k: ArrayLike) -> FloatArray:
         """Slope of the curve :math:`dc_{sat}/dT` [kg/kg/K]; negative for retrograde solubility."""
         temp = np.asarray(temp_k, dtype=float)
-        y = self.model.y(temp, self.params)
-        return self.basis.dconc_dy(y) * self.model.dy_dtemp(temp, self.params)
+        dconc_dy = self.basis.dconc_dy(self.model.y(temp, self.params))
+        return dconc_dy * self.model.dy_dtemp(temp, self.params)
 
     def dc_sat_dparams(self, temp_k: ArrayLike) -> FloatArray:
         """Sensitivity of ``c_sat`` to each parameter, shape ``temp_k.shape + (p,)``."""
         temp = np.asarray(temp_k, dtype=float)
-        y = self.model.y(temp, self.params)
-        return self.basis.dconc_dy(y)[..., None] * self.model.dy_dparams(temp, self.params)
+        dconc_dy = self.basis.dconc_dy(self.model.y(temp, self.params))
+        return dconc_dy[..., None] * self.model.dy_dparams(temp, self.params)
 
     def c_sat_std(self, temp_k: ArrayLike) -> FloatArray:
         r"""Standard deviation of the fitted curve at ``temp_k`` (delta method) [kg/kg]:
         :math:`\sqrt{g^\top \Sigma g}`, :math:`g = \partial c_{sat} / \partial \theta`."""
-        g = self.dc_sat_dparams(temp_k)
+        return self._std_of(self.dc_sat_dparams(temp_k))
+
+    def _std_of(self, dc_sat_dparams: FloatArray) -> FloatArray:
+        g = dc_sat_dparams
         return np.sqrt(np.einsum("...i,ij,...j->...", g, self.covariance, g))
+
+    def evaluate(self, temp_k: ArrayLike) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """:meth:`c_sat`, :meth:`dc_sat_dtemp` and :meth:`c_sat_std` at ``temp_k`` [K] at once,
+        each the same number as its own method gives, with the correlation evaluated once
+        (what the soft sensor reports at every sample)."""
+        temp = np.asarray(temp_k, dtype=float)
+        y = self.model.y(temp, self.params)
+        dconc_dy = self.basis.dconc_dy(y)
+        slope = dconc_dy * self.model.dy_dtemp(temp, self.params)
+        std = self._std_of(dconc_dy[..., None] * self.model.dy_dparams(temp, self.params))
+        return self.basis.to_conc(y), slope, std
 
     def interval(self, temp_k: ArrayLike, level: float = 0.95) -> tuple[FloatArray, FloatArray]:
         """Two-sided confidence band of the curve at ``level`` (Student's t on :attr:`dof`)."""
