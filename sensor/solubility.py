@@ -35,6 +35,7 @@ References
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import ClassVar, Protocol
@@ -263,7 +264,11 @@ class LambdaH:
         return best[1]
 
 
-_LAMBDA_H_SIGNATURE = ["float64(float64, float64, float64, float64)"]
+def _ufunc_of_four(formula: Callable[[float, float, float, float], float]) -> np.ufunc:
+    """``formula`` of four floats compiled into a numpy ufunc (numba's own wrapper around the
+    ufunc costs about three times the call)."""
+    signature = ["float64(float64, float64, float64, float64)"]
+    return numba.vectorize(signature, cache=True)(formula).ufunc
 
 
 @numba.njit(cache=True)
@@ -273,25 +278,25 @@ def _lambda_h_exp(temp_k: float, lam: float, h: float, melt_temp_k: float) -> tu
     return u, math.exp(lam * h * u)
 
 
-@numba.vectorize(_LAMBDA_H_SIGNATURE, cache=True)
+@_ufunc_of_four
 def _lambda_h_y(temp_k: float, lam: float, h: float, melt_temp_k: float) -> float:
     _, e = _lambda_h_exp(temp_k, lam, h, melt_temp_k)
     return lam / (lam + e - 1.0)
 
 
-@numba.vectorize(_LAMBDA_H_SIGNATURE, cache=True)
+@_ufunc_of_four
 def _lambda_h_dy_dtemp(temp_k: float, lam: float, h: float, melt_temp_k: float) -> float:
     _, e = _lambda_h_exp(temp_k, lam, h, melt_temp_k)
     return lam**2 * h * e / (temp_k**2 * (lam + e - 1.0) ** 2)
 
 
-@numba.vectorize(_LAMBDA_H_SIGNATURE, cache=True)
+@_ufunc_of_four
 def _lambda_h_dy_dlambda(temp_k: float, lam: float, h: float, melt_temp_k: float) -> float:
     u, e = _lambda_h_exp(temp_k, lam, h, melt_temp_k)
     return (e - 1.0 - lam * h * u * e) / (lam + e - 1.0) ** 2
 
 
-@numba.vectorize(_LAMBDA_H_SIGNATURE, cache=True)
+@_ufunc_of_four
 def _lambda_h_dy_dh(temp_k: float, lam: float, h: float, melt_temp_k: float) -> float:
     u, e = _lambda_h_exp(temp_k, lam, h, melt_temp_k)
     return -(lam**2) * u * e / (lam + e - 1.0) ** 2
