@@ -575,7 +575,7 @@ class SolubilityCurve:
         target = flat[inside]
         if target.size == 0:
             return result.reshape(conc.shape)
-        right = np.clip(np.searchsorted(c_table, target), 1, len(c_table) - 1)
+        right = np.minimum(np.maximum(np.searchsorted(c_table, target), 1), len(c_table) - 1)
         left = right - 1
         fraction = (target - c_table[left]) / (c_table[right] - c_table[left])
         start = t_table[left] + fraction * (t_table[right] - t_table[left])
