@@ -5,8 +5,9 @@ filterpy's ``UnscentedKalmanFilter`` (same rules, same sigma points and weights,
 predicts and updates, same re-filtering for the analyzer's delay; ``tests/test_batchfilter.py``
 holds the two to 1e-9 in every state), but fused into one numba kernel per batch:
 
-- the model, the process noise and the validation rules are the very functions the live path
-  calls (:mod:`sensor.crystallizer`, :mod:`sensor.kalman`, :mod:`sensor.validation`), inlined;
+- the model, the process noise, the UKF's sums and the validation rules are the very functions
+  the live path calls (:mod:`sensor.crystallizer`, :mod:`sensor.kalman`,
+  :mod:`sensor.unscented`, :mod:`sensor.validation`), inlined;
 - the two sigma points that differ from the mean only in the analyzer bias (the last state, whose
   row of the Cholesky factor has a single entry) are not propagated: the model ignores the bias,
   so their propagation equals the mean's, bit for bit;
