@@ -5,8 +5,9 @@ filterpy's ``UnscentedKalmanFilter`` (same rules, same sigma points and weights,
 predicts and updates, same re-filtering for the analyzer's delay; ``tests/test_batchfilter.py``
 holds the two to 1e-9 in every state), but fused into one numba kernel per batch:
 
-- the model, the process noise and the validation rules are the very functions the live path
-  calls (:mod:`sensor.crystallizer`, :mod:`sensor.kalman`, :mod:`sensor.validation`), inlined;
+- the model, the process noise, the UKF's sums and the validation rules are the very functions
+  the live path calls (:mod:`sensor.crystallizer`, :mod:`sensor.kalman`,
+  :mod:`sensor.unscented`, :mod:`sensor.validation`), inlined;
 - the two sigma points that differ from the mean only in the analyzer bias (the last state, whose
   row of the Cholesky factor has a single entry) are not propagated: the model ignores the bias,
   so their propagation equals the mean's, bit for bit;
@@ -33,11 +34,12 @@ from typing import NamedTuple
 import numba
 import numpy as np
 
-from sensor.crystallizer import CONC, TEMP, ZETA0, step_points, stop_moments
+from sensor.crystallizer import CONC, TEMP, ZETA0, stop_moments
 from sensor.errors import SigmatrackError
 from sensor.kalman import (
     initial_state,
     initial_vector,
+    measurement_rows,
     merwe_weights,
     noise_from_rates,
     noise_vector,
@@ -47,6 +49,14 @@ from sensor.kalman import (
 from sensor.numerics import FloatArray
 from sensor.samples import GOOD, Reading, Sample, severity
 from sensor.softsensor import SoftSensor, UnitSetup
+from sensor.unscented import (
+    bias_pair,
+    linear_innovation,
+    linear_update_into,
+    propagate_into,
+    sigma_points_into,
+    unscented_moments_into,
+)
 from sensor.validation import N_STATE, R_STALE, check_reading
 
 # Flags recorded per sample (bits of ``flags``).
@@ -81,6 +91,9 @@ class KernelSetup(NamedTuple):
     wc: FloatArray
     spread: float
     """:math:`n + \\lambda` of the sigma points"""
+    h_temp: FloatArray
+    h_conc: FloatArray
+    """the measurement rows: reactor temperature, analyzer (concentration plus bias)"""
     r_temp: float
     r_conc: float
     gate_nis: float
@@ -100,6 +113,7 @@ def kernel_setup(setup: UnitSetup) -> KernelSetup:
     n = model.layout.size
     wm, wc = merwe_weights(n, tuning.sigma_alpha, tuning.sigma_beta, tuning.sigma_kappa)
     lam = tuning.sigma_alpha**2 * (n + tuning.sigma_kappa) - n
+    h_temp, h_conc = measurement_rows(model.layout)
     return KernelSetup(
         params=model.params,
         table=model.table,
@@ -111,6 +125,8 @@ def kernel_setup(setup: UnitSetup) -> KernelSetup:
         wm=wm,
         wc=wc,
         spread=float(n + lam),
+        h_temp=h_temp,
+        h_conc=h_conc,
         r_temp=setup.measurements.temp_noise_std_k**2,
         r_conc=setup.measurements.conc_noise_std**2,
         gate_nis=tuning.gate_nis,
@@ -206,9 +222,6 @@ def _set_event(
 @numba.njit(cache=True)
 def _workspace(n: int) -> Workspace:
     points = 2 * n + 1
-    skip = np.zeros(points, dtype=np.bool_)
-    skip[n] = True
-    skip[2 * n] = True
     return Workspace(
         np.empty(n),
         np.empty((n, n)),
@@ -220,131 +233,35 @@ def _workspace(n: int) -> Workspace:
         np.empty(n),
         np.empty(points),
         np.empty(n),
-        skip,
+        bias_pair(n),
         np.empty(n),
     )
 
 
 @numba.njit(cache=True)
-def _cholesky_upper(a: FloatArray, u: FloatArray) -> bool:
-    """Upper-triangular ``u`` with ``u.T @ u = a`` (as ``scipy.linalg.cholesky``); False when
-    ``a`` is not positive-definite."""
-    n = a.shape[0]
-    u[:, :] = 0.0
-    for j in range(n):
-        s = a[j, j]
-        for k in range(j):
-            s -= u[k, j] * u[k, j]
-        if not s > 0.0:
-            return False
-        d = math.sqrt(s)
-        u[j, j] = d
-        for i in range(j + 1, n):
-            t = a[j, i]
-            for k in range(j):
-                t -= u[k, j] * u[k, i]
-            u[j, i] = t / d
-    return True
-
-
-@numba.njit(cache=True)
-def _sigma_points(x, P, spread, w: Workspace, out) -> bool:
-    """Merwe's sigma points of (x, P) into ``out`` (2n+1, n), as filterpy orders them."""
-    n = x.shape[0]
-    for i in range(n):
-        for j in range(n):
-            w.scaled[i, j] = spread * P[i, j]
-    u = w.chol
-    if not _cholesky_upper(w.scaled, u):
-        return False
-    for j in range(n):
-        out[0, j] = x[j]
-    for k in range(n):
-        for j in range(n):
-            out[k + 1, j] = x[j] + u[k, j]
-            out[n + k + 1, j] = x[j] - u[k, j]
-    return True
-
-
-@numba.njit(cache=True)
 def _predict(dt, jacket, s: KernelSetup, w: Workspace) -> bool:
-    """filterpy's UKF ``predict`` on ``w.x``, ``w.P``: propagate sigma points, unscented
-    transform plus Q, redraw the sigma points into ``w.sigf``."""
-    x, P, sig, sigf = w.x, w.P, w.sig, w.sigf
-    n = x.shape[0]
-    if not _sigma_points(x, P, s.spread, w, sig):
+    """filterpy's UKF ``predict`` on ``w.x``, ``w.P`` (:mod:`sensor.unscented`): draw and
+    propagate the sigma points, unscented transform plus Q."""
+    x, P = w.x, w.P
+    if not sigma_points_into(x, P, s.spread, w.scaled, w.chol, w.sig):
         return False
-    count = 2 * n + 1
     # the bias-only pair is not propagated: its propagation is the mean's (module docstring)
-    step_points(sig, w.skip, dt, jacket, s.params, s.table, sigf, w.slope, w.mean_slope)
+    propagate_into(w.sig, w.skip, dt, jacket, s.params, s.table, w.sigf, w.slope, w.mean_slope)
     w.q[:, :] = 0.0
     if dt > 0.0:  # Q from the mean's rates, as process_noise computes it
         noise_from_rates(w.mean_slope, dt, s.noise, w.q)
-    for i in (n, 2 * n):
-        sigf[i, :] = sigf[0, :]
-        sigf[i, n - 1] = sig[i, n - 1]
-    for j in range(n):
-        acc = 0.0
-        for i in range(count):
-            acc += s.wm[i] * sigf[i, j]
-        x[j] = acc
-    for a in range(n):
-        for b in range(a, n):
-            acc = 0.0
-            for i in range(count):
-                acc += s.wc[i] * (sigf[i, a] - x[a]) * (sigf[i, b] - x[b])
-            P[a, b] = acc + w.q[a, b]
-            P[b, a] = P[a, b]
+    unscented_moments_into(w.sigf, s.wm, s.wc, w.q, x, P)
     stop_moments(x)  # as CrystallizerFilter._predict does, before the sigma points are drawn again
     return True
 
 
 @numba.njit(cache=True)
-def _measured(state, channel: int, n: int) -> float:
-    if channel == SIGNAL_TEMP:
-        return state[TEMP]
-    return state[CONC] + state[n - 1]
-
-
-@numba.njit(cache=True)
-def _innovation(x, P, z, channel: int, r: float) -> tuple[float, float]:
-    n = x.shape[0]
-    y = z - _measured(x, channel, n)
-    if channel == SIGNAL_TEMP:
-        var = P[TEMP, TEMP] + r
-    else:
-        b = n - 1
-        var = P[CONC, CONC] + 2.0 * P[CONC, b] + P[b, b] + r
-    return y, var
-
-
-@numba.njit(cache=True)
-def _update(z, channel: int, r: float, s: KernelSetup, w: Workspace) -> None:
+def _update(z: float, hrow: FloatArray, r: float, w: Workspace) -> None:
     """filterpy's UKF ``update`` of ``w.x``, ``w.P`` for one scalar, linear measurement
-    :math:`z = h^\\top x + v`. The unscented transform of a linear function reproduces its mean
-    and covariance exactly, so this is the closed form, :math:`S = h^\\top P h + r`,
-    :math:`K = P h / S`, :math:`x \\leftarrow x + K (z - h^\\top x)`,
-    :math:`P \\leftarrow P - K S K^\\top`, equal to filterpy's sigma-point sums to rounding."""
-    x, P, gain = w.x, w.P, w.gain
-    n = x.shape[0]
-    b = n - 1
-    if channel == SIGNAL_TEMP:
-        for j in range(n):
-            gain[j] = P[j, TEMP]
-    else:
-        for j in range(n):
-            gain[j] = P[j, CONC] + P[j, b]
-    y, var = _innovation(x, P, z, channel, r)
-    for j in range(n):
-        gain[j] /= var
-    for j in range(n):
-        x[j] += gain[j] * y
-    for a in range(n):
-        for c in range(a, n):
-            value = P[a, c] - gain[a] * var * gain[c]
-            P[a, c] = value
-            P[c, a] = value
-    stop_moments(x)  # as CrystallizerFilter._update does
+    :math:`z = h^\\top x + v`, in closed form (:func:`sensor.unscented.linear_update_into`)."""
+    y, var = linear_innovation(w.x, w.P, hrow, z, r)
+    linear_update_into(w.x, w.P, hrow, y, var, w.gain)
+    stop_moments(w.x)  # as CrystallizerFilter._update does
 
 
 @numba.njit(cache=True)
@@ -368,13 +285,13 @@ def _run_event(e: int, h: History, s: KernelSetup, w: Workspace) -> tuple[int, b
         return ERROR_NOT_PD, False
     gated = False
     if not math.isnan(h.temp[e]):
-        y, var = _innovation(x, P, h.temp[e], SIGNAL_TEMP, s.r_temp)
+        y, var = linear_innovation(x, P, s.h_temp, h.temp[e], s.r_temp)
         if y * y / var > s.gate_nis:
             gated = True
         else:
-            _update(h.temp[e], SIGNAL_TEMP, s.r_temp, s, w)
+            _update(h.temp[e], s.h_temp, s.r_temp, w)
     if not math.isnan(h.conc[e]):
-        _update(h.conc[e], SIGNAL_CONC, s.r_conc, s, w)
+        _update(h.conc[e], s.h_conc, s.r_conc, w)
     for j in range(x.shape[0]):
         if not math.isfinite(x[j]):
             return ERROR_NOT_FINITE, gated
@@ -544,14 +461,14 @@ def filter_batch(
                         widen(P, x, s.init)
                         widened = True
                     z = accepted[SIGNAL_CONC]
-                    y, var = _innovation(x, P, z, SIGNAL_CONC, s.r_conc)
+                    y, var = linear_innovation(x, P, s.h_conc, z, s.r_conc)
                     nis = y * y / var
                     if nis > s.gate_nis and not force:
                         gated_run += 1
                         reasons[SIGNAL_CONC] = _GATED
                     else:
                         gated_run = 0
-                        _update(z, SIGNAL_CONC, s.r_conc, s, w)
+                        _update(z, s.h_conc, s.r_conc, w)
                         if count >= capacity:
                             kept = _shift(base, count, h)
                             anchor -= count - kept

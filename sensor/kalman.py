@@ -63,6 +63,7 @@ from sensor.crystallizer import (
     ZETA0,
     ZETA3,
     CrystallizerModel,
+    StateLayout,
     rates,
     step,
     step_jacobian,
@@ -70,6 +71,14 @@ from sensor.crystallizer import (
 )
 from sensor.errors import SigmatrackError
 from sensor.numerics import FloatArray, get_array, put_array
+from sensor.unscented import (
+    bias_pair,
+    linear_innovation,
+    linear_update_into,
+    propagate_into,
+    sigma_points_into,
+    unscented_moments_into,
+)
 
 
 class FilterError(SigmatrackError, ArithmeticError):
@@ -246,6 +255,161 @@ def merwe_weights(n: int, alpha: float, beta: float, kappa: float) -> tuple[Floa
     return np.array(points.Wm, dtype=float), np.array(points.Wc, dtype=float)
 
 
+def measurement_rows(layout: StateLayout) -> tuple[FloatArray, FloatArray]:
+    """The measurement rows :math:`h` (n,) of the reactor temperature (:math:`T`) and of the
+    analyzer (:math:`c + b`): both measurements are linear, :math:`z = h^\\top x + v`."""
+    h_temp = np.zeros(layout.size)
+    h_temp[TEMP] = 1.0
+    h_conc = np.zeros(layout.size)
+    h_conc[CONC] = 1.0
+    h_conc[layout.bias] = 1.0
+    return h_temp, h_conc
+
+
+class CompiledSigmaPoints(MerweScaledSigmaPoints):
+    """filterpy's ``MerweScaledSigmaPoints`` [2]_ (same parameters, weights and order), its
+    ``sigma_points`` compiled (:func:`sensor.unscented.sigma_points_into`): one call instead of
+    scipy's Cholesky and numpy's row operations."""
+
+    def __init__(self, n: int, alpha: float, beta: float, kappa: float) -> None:
+        super().__init__(n, alpha, beta, kappa)
+        self._spread = float(n + alpha**2 * (n + kappa) - n)
+        self._scaled = np.empty((n, n))
+        self._chol = np.empty((n, n))
+
+    def sigma_points(self, x: FloatArray, P: FloatArray) -> FloatArray:
+        """The 2n+1 sigma points (rows) of mean ``x`` and covariance ``P``.
+
+        Raises
+        ------
+        numpy.linalg.LinAlgError
+            If ``P`` is not positive-definite (or not finite), as scipy's Cholesky would.
+        """
+        out = np.empty((2 * self.n + 1, self.n))
+        x = np.asarray(x, dtype=float)
+        P = np.ascontiguousarray(P, dtype=float)
+        if not sigma_points_into(x, P, self._spread, self._scaled, self._chol, out):
+            raise np.linalg.LinAlgError("the covariance is not positive-definite")
+        return out
+
+
+class CrystallizerUKF(UnscentedKalmanFilter):
+    r"""filterpy's ``UnscentedKalmanFilter`` on the crystallizer model, with the per-point
+    Python work compiled; it computes the same filter (held to 1e-10 against the unmodified
+    filterpy class by ``tests/test_kalman_fast.py``).
+
+    - ``compute_process_sigmas`` draws the sigma points and steps all of them through the model
+      in one call (:func:`sensor.unscented.propagate_into`, which skips the two points that
+      differ from the mean only in the analyzer bias: their propagation is the mean's);
+    - ``predict`` uses the compiled unscented transform (same sums as filterpy's) unless given
+      another;
+    - :meth:`update_linear` is ``update`` for a scalar linear measurement :math:`z = h^	op x +
+      v` in closed form: the unscented transform of a linear function is exact, so
+      :math:`\hat z = h^	op x`, :math:`S = h^	op P h + r` and :math:`P_{xz} = P h`, with no
+      call of ``hx`` per sigma point and no ``cross_variance`` loop
+      (:func:`sensor.unscented.linear_update_into` gives the reason in full).
+
+    The sigma points are Merwe's (:class:`CompiledSigmaPoints`); ``fx`` is the model's
+    :func:`~sensor.crystallizer.step` and ``hx`` the temperature row, kept for filterpy's own
+    methods.
+    """
+
+    def __init__(self, model: CrystallizerModel, tuning: FilterTuning) -> None:
+        n = model.layout.size
+        points = CompiledSigmaPoints(n, tuning.sigma_alpha, tuning.sigma_beta, tuning.sigma_kappa)
+        h_temp, _ = measurement_rows(model.layout)
+        super().__init__(
+            n,
+            1,
+            1.0,
+            hx=lambda x: h_temp[None, :] @ x,
+            fx=lambda x, dt, jacket_temp_k: step(x, dt, jacket_temp_k, model.params, model.table),
+            points=points,
+        )
+        self._model = model
+        self._skip = bias_pair(n)
+        self._slope = np.empty(n)
+        self._mean_slope = np.empty(n)
+        self._gain = np.empty(n)
+
+    def compute_process_sigmas(
+        self, dt: float, fx: object = None, jacket_temp_k: float = math.nan
+    ) -> None:
+        """``sigmas_f``: the sigma points of (``x``, ``P``) stepped over ``dt`` [s] with the
+        jacket at ``jacket_temp_k`` [K], all in one compiled call."""
+        if fx is not None:
+            raise TypeError("CrystallizerUKF propagates its own model; it takes no fx")
+        sigmas = self.points_fn.sigma_points(self.x, self.P)
+        out = np.empty_like(sigmas)
+        model = self._model
+        propagate_into(
+            sigmas,
+            self._skip,
+            dt,
+            jacket_temp_k,
+            model.params,
+            model.table,
+            out,
+            self._slope,
+            self._mean_slope,
+        )
+        self.sigmas_f = out
+
+    def predict(
+        self, dt: float | None = None, UT: Any = None, fx: object = None, **fx_args: float
+    ) -> None:
+        """filterpy's ``predict``, with the compiled unscented transform by default."""
+        super().predict(dt, _unscented_transform if UT is None else UT, fx, **fx_args)
+
+    def update_linear(self, z: float, h: FloatArray, r: float) -> None:
+        """``update`` with the scalar ``z`` of the linear measurement :math:`h^\\top x + v`,
+        :math:`v \\sim N(0, r)` (class docstring); sets ``x``, ``P``, ``S``, ``SI``, ``K``,
+        ``y``, ``z`` and the posterior copies as filterpy's ``update`` does.
+
+        Raises
+        ------
+        numpy.linalg.LinAlgError
+            If the innovation variance is not positive (as filterpy's inverse of a singular
+            :math:`S`).
+        """
+        y, var = linear_innovation(self.x, self.P, h, z, r)
+        if not var > 0.0:
+            raise np.linalg.LinAlgError(f"innovation variance {var} is not positive")
+        x = self.x.copy()
+        P = self.P.copy()
+        linear_update_into(x, P, h, y, var, self._gain)
+        self.x, self.P = x, P
+        self.S = np.array([[var]])
+        self.SI = np.array([[1.0 / var]])
+        self.K = self._gain[:, None].copy()
+        self.y = np.array([y])
+        self.z = np.array([z])
+        self.x_post = x.copy()
+        self.P_post = P.copy()
+        self._log_likelihood = None
+        self._likelihood = None
+        self._mahalanobis = None
+
+
+def _unscented_transform(
+    sigmas: FloatArray,
+    Wm: FloatArray,
+    Wc: FloatArray,
+    noise_cov: FloatArray,
+    mean_fn: object = None,
+    residual_fn: object = None,
+) -> tuple[FloatArray, FloatArray]:
+    """filterpy's ``unscented_transform`` (plain mean, residual ``np.subtract``), compiled
+    (:func:`sensor.unscented.unscented_moments_into`)."""
+    if mean_fn is not None or residual_fn not in (None, np.subtract):
+        raise TypeError("the compiled unscented transform takes no mean or residual function")
+    n = sigmas.shape[1]
+    x = np.empty(n)
+    P = np.empty((n, n))
+    unscented_moments_into(sigmas, Wm, Wc, noise_cov, x, P)
+    return x, P
+
+
 @dataclass(frozen=True)
 class UpdateInfo:
     """What one scalar update did.
@@ -368,6 +532,11 @@ class CrystallizerFilter:
     sample's time, seed if the batch was seeded, update with the temperature) and, when the
     sample holds an analyzer value, :meth:`analyzer`. Times are the samples' own [s]; nothing
     here reads a clock.
+
+    The UKF is :class:`CrystallizerUKF` (filterpy's, with its per-sigma-point work compiled);
+    ``reference=True`` takes the unmodified ``filterpy.kalman.UnscentedKalmanFilter`` instead,
+    every sigma point through ``fx`` and ``hx`` one by one: the same filter, slower, against
+    which the compiled one is tested and benchmarked.
     """
 
     def __init__(
@@ -376,6 +545,7 @@ class CrystallizerFilter:
         tuning: FilterTuning,
         measurements: Measurements,
         seed_zeta: FloatArray,
+        reference: bool = False,
     ) -> None:
         self.model = model
         self.tuning = tuning
@@ -388,20 +558,20 @@ class CrystallizerFilter:
         self._init = initial_vector(tuning)
         self._seed_cov = seed_covariance(self.seed_zeta, tuning, n)
         self._gate = tuning.gate_nis
-        self._h_temp = np.zeros((1, n))
-        self._h_temp[0, TEMP] = 1.0
-        self._h_conc = np.zeros((1, n))
-        self._h_conc[0, CONC] = 1.0
-        self._h_conc[0, model.layout.bias] = 1.0
-        self._r_temp = np.array([[measurements.temp_noise_std_k**2]])
-        self._r_conc = np.array([[measurements.conc_noise_std**2]])
-        if tuning.kind == "ukf":
+        self._h_temp, self._h_conc = measurement_rows(model.layout)
+        self._r_temp = measurements.temp_noise_std_k**2
+        self._r_conc = measurements.conc_noise_std**2
+        self._ukf: UnscentedKalmanFilter | None
+        if tuning.kind == "ukf" and reference:
             points = MerweScaledSigmaPoints(
                 n, tuning.sigma_alpha, tuning.sigma_beta, tuning.sigma_kappa
             )
             self._ukf = UnscentedKalmanFilter(
                 n, 1, 1.0, hx=self._hx_temp, fx=self._fx, points=points
             )
+            self._ekf = None
+        elif tuning.kind == "ukf":
+            self._ukf = CrystallizerUKF(model, tuning)
             self._ekf = None
         else:
             self._ekf = _ModelEKF(n, model)
@@ -415,10 +585,10 @@ class CrystallizerFilter:
         return step(x, dt, jacket_temp_k, self.model.params, self.model.table)
 
     def _hx_temp(self, x: FloatArray) -> FloatArray:
-        return self._h_temp @ x
+        return self._h_temp[None, :] @ x
 
     def _hx_conc(self, x: FloatArray) -> FloatArray:
-        return self._h_conc @ x
+        return self._h_conc[None, :] @ x
 
     # --- state ---------------------------------------------------------------------------------
 
@@ -542,18 +712,21 @@ class CrystallizerFilter:
         x, P = self._get()
         h = self._h_temp if channel == "temp" else self._h_conc
         r = self._r_temp if channel == "temp" else self._r_conc
-        innovation = float(z - (h @ x)[0])
-        var = float((h @ P @ h.T)[0, 0] + r[0, 0])
+        innovation, var = linear_innovation(x, P, h, z, r)
         nis = innovation * innovation / var
         if nis > self._gate and not force:
             return UpdateInfo(innovation, var, nis, gated=True)
-        zv = np.array([z])
         try:
-            if self._ukf is not None:
+            if isinstance(self._ukf, CrystallizerUKF):
+                self._ukf.update_linear(z, h, r)
+            elif self._ukf is not None:
                 hx = self._hx_temp if channel == "temp" else self._hx_conc
-                self._ukf.update(zv, R=r, hx=hx)
+                self._ukf.update(np.array([z]), R=np.array([[r]]), hx=hx)
             else:
-                self._ekf.update(zv, HJacobian=lambda _x: h, Hx=lambda s: h @ s, R=r)
+                hm = h[None, :]
+                self._ekf.update(
+                    np.array([z]), HJacobian=lambda _x: hm, Hx=lambda s: hm @ s, R=np.array([[r]])
+                )
         except (np.linalg.LinAlgError, ValueError):
             # ValueError: scipy's inverse refuses an innovation covariance holding NaN
             raise FilterError(
@@ -578,7 +751,9 @@ class CrystallizerFilter:
         if not math.isnan(event.conc):
             self._update(event.conc, "conc", force=True, time_s=event.time_s)
         x, P = self._get()
-        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(P))):
+        # a NaN or infinity anywhere makes the sum one (a finite state's sums stay far from
+        # overflow); two sums cost a quarter of numpy's isfinite-and-all on these small arrays
+        if not (math.isfinite(x.sum()) and math.isfinite(P.sum())):
             raise FilterError(f"t = {event.time_s:.1f} s: the state is not finite")
         event.x, event.P = x.copy(), P.copy()
         return info

@@ -91,7 +91,8 @@ class MetastableZone(ABC):
         """Temperature [K] at which a solution of ``conc`` [kg/kg] nucleates at this rate.
         NaN where the concentration is outside the solubility curve's domain."""
         temp_sat = self.solubility.temp_sat(conc)
-        return temp_sat - self._direction(temp_sat) * self.width_k(temp_sat, rate_k_per_s)
+        direction, width = self._direction_and_width(temp_sat, np.asarray(rate_k_per_s, float))
+        return temp_sat - direction * width
 
     def limit_temp_sat_k(
         self, temp_k: ArrayLike, rate_k_per_s: ArrayLike, *, max_iterations: int = 60

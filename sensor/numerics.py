@@ -58,7 +58,7 @@ def bracketed_newton(
         updated = np.where(inside, newton, 0.5 * (below + above))
         step = np.abs(updated - x)
         x = updated
-        if np.all(step <= tolerance):
+        if (step <= tolerance).all():
             return x
     raise NoConvergence(f"no convergence in {max_iterations} iterations")
 

@@ -196,9 +196,7 @@ def estimates(
     std = np.sqrt(np.maximum(var, 0.0))
     temp = x[:, TEMP]
     conc = x[:, CONC]
-    c_sat = curve.c_sat(temp)
-    slope = curve.dc_sat_dtemp(temp)
-    c_sat_std = curve.c_sat_std(temp)
+    c_sat, slope, c_sat_std = curve.evaluate(temp)
     ratio = conc / c_sat
     sigma = ratio - 1.0
     cooling = model.params[P_HEAT_RATE] * (temp - jacket)  # -dT/dt [K/s]
@@ -206,18 +204,16 @@ def estimates(
     supersaturating = direction * cooling  # cooling for normal, heating for retrograde curves
     rate_lo, _ = zone.rate_range_k_per_s
     rate_used = np.maximum(supersaturating, rate_lo) if rate_lo > 0.0 else supersaturating
-    with np.errstate(invalid="ignore", divide="ignore"):
+    solids = x[:, ZETA3]
+    shown = solids > SOLIDS_SHOWN_ABOVE
+    grown = solids - seed
+    dissolved_total = conc + grown
+    with np.errstate(invalid="ignore", divide="ignore"):  # once: it costs as much as a solve
         cloud = zone.cloud_temp_k(np.maximum(conc, 0.0), rate_used)
         margin_k = direction * (temp - cloud)
         sigma_limit = conc / curve.c_sat(cloud) - 1.0
-    solids = x[:, ZETA3]
-    shown = solids > SOLIDS_SHOWN_ABOVE
-    with np.errstate(invalid="ignore", divide="ignore"):
         sauter = np.where(shown, MOMENT_SIZE_SCALE_M * x[:, ZETA3] / x[:, ZETA2], np.nan)
         number = np.where(shown, MOMENT_SIZE_SCALE_M * x[:, ZETA1] / x[:, ZETA0], np.nan)
-    grown = solids - seed
-    dissolved_total = conc + grown
-    with np.errstate(invalid="ignore", divide="ignore"):
         yield_fraction = np.where(dissolved_total > 0.0, grown / dissolved_total, np.nan)
     if layout.estimate_growth_scale:
         theta, theta_std = x[:, GROWTH_SCALE], std[:, GROWTH_SCALE]

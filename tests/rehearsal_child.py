@@ -18,6 +18,8 @@ import sensor.crystallizer
 import sensor.kalman
 import sensor.outputs
 import sensor.predictor
+import sensor.solubility
+import sensor.unscented
 import sensor.validation
 from sensor.pipeline import UnitPipeline, rehearse
 from sensor.shell.sitesensor import pipeline_setup
@@ -30,6 +32,8 @@ MODULES = (
     sensor.kalman,
     sensor.outputs,
     sensor.predictor,
+    sensor.solubility,
+    sensor.unscented,
     sensor.validation,
 )
 
