@@ -303,9 +303,9 @@ class CrystallizerUKF(UnscentedKalmanFilter):
       differ from the mean only in the analyzer bias: their propagation is the mean's);
     - ``predict`` uses the compiled unscented transform (same sums as filterpy's) unless given
       another;
-    - :meth:`update_linear` is ``update`` for a scalar linear measurement :math:`z = h^	op x +
+    - :meth:`update_linear` is ``update`` for a scalar linear measurement :math:`z = h^\top x +
       v` in closed form: the unscented transform of a linear function is exact, so
-      :math:`\hat z = h^	op x`, :math:`S = h^	op P h + r` and :math:`P_{xz} = P h`, with no
+      :math:`\hat z = h^\top x`, :math:`S = h^\top P h + r` and :math:`P_{xz} = P h`, with no
       call of ``hx`` per sigma point and no ``cross_variance`` loop
       (:func:`sensor.unscented.linear_update_into` gives the reason in full).
 

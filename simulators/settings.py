@@ -95,6 +95,9 @@ class ThermalSettings:
     rate_feedforward: bool = True
 
 
+DEFAULT_COOLING_DURATION_S = 21600.0
+"""The recipe's own linear or cubic profile lasts this long unless the site file says [s]."""
+
 _PROFILE_ENDS_TOLERANCE_K = 0.01
 """How far a profile file's first and last temperatures may be from the recipe's seed and final
 temperatures [K]: the file's resolution, 0.01 °C."""
@@ -107,7 +110,8 @@ class RecipeSettings:
     With ``cooling_profile = "file"`` the recipe's own profile is the table in
     ``cooling_profile_file`` (a profile CSV, as ``sigmatrack plan --out`` writes it), read here
     into ``profile_table``; it must run from ``seed_temp_c`` to ``final_temp_c`` and end within
-    ``cooling_max_s``, and ``cooling_duration_s`` is not used.
+    ``cooling_max_s``, and ``cooling_duration_s`` (the file sets the duration) is refused.
+    Otherwise ``cooling_duration_s`` defaults to :data:`DEFAULT_COOLING_DURATION_S`.
     """
 
     dissolve_temp_c: float
@@ -121,7 +125,7 @@ class RecipeSettings:
     seed_hold_s: float = field(default=1800.0, metadata=check(non_negative))
     cooling_profile: Literal["linear", "cubic", "file"] = "cubic"
     cooling_profile_file: Path | None = None
-    cooling_duration_s: float = field(default=21600.0, metadata=check(positive))
+    cooling_duration_s: float | None = field(default=None, metadata=check(positive))
     cooling_max_s: float = field(default=32400.0, metadata=check(positive))
     final_hold_s: float = field(default=3600.0, metadata=check(non_negative))
     discharge_s: float = field(default=1800.0, metadata=check(non_negative))
@@ -142,11 +146,20 @@ class RecipeSettings:
                 "cooling_profile_file", 'is needed with cooling_profile = "file", and only then'
             )
         if self.cooling_profile_file is not None:
+            if self.cooling_duration_s is not None:
+                raise Invalid(
+                    "cooling_duration_s",
+                    'is not used with cooling_profile = "file" (the profile file sets the '
+                    "duration): remove it",
+                )
             table = read_profile_csv(self.cooling_profile_file)
             self._check_table(table)
             object.__setattr__(self, "profile_table", table)
-        elif self.cooling_max_s < self.cooling_duration_s:
-            raise Invalid("cooling_max_s", "cannot be shorter than cooling_duration_s")
+        else:
+            if self.cooling_duration_s is None:
+                object.__setattr__(self, "cooling_duration_s", DEFAULT_COOLING_DURATION_S)
+            if self.cooling_max_s < self.cooling_duration_s:
+                raise Invalid("cooling_max_s", "cannot be shorter than cooling_duration_s")
 
     def _check_table(self, table: ProfileData) -> None:
         """A profile file fits the recipe: from the seed to the final temperature, within

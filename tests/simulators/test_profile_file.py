@@ -49,6 +49,7 @@ def file_settings(demo_settings, planned):
         demo_settings,
         cooling_profile="file",
         cooling_profile_file=path,
+        cooling_duration_s=None,  # the file sets it
         cooling_max_s=time_s[-1] + 1800.0,
     )
 
@@ -110,6 +111,8 @@ def _site_beside(tmp_path, profile_text, **keys):
         'cooling_profile = "cubic"',
         'cooling_profile = "file"\ncooling_profile_file = "profile.csv"\n#',
     )
+    if "cooling_duration_s" not in keys:  # the file sets the duration
+        text = text.replace("\ncooling_duration_s =", "\n# cooling_duration_s =")
     return parse_site(text, tmp_path / "site.toml")
 
 
@@ -150,6 +153,13 @@ def test_a_relative_profile_path_is_read_against_the_site_file(tmp_path):
             {},
             SiteConfigError,
             r"profile\.csv, line 4: the profile ends at 12 °C, the recipe's final_temp_c is 10",
+        ),
+        (
+            GOOD,
+            {"cooling_duration_s": 21600.0},
+            SiteConfigError,
+            r'simulator\.recipe\.cooling_duration_s: is not used with cooling_profile = "file" '
+            r"\(the profile file sets the duration\): remove it",
         ),
         (
             GOOD,
