@@ -47,6 +47,10 @@ class AlarmSettings:
     Parameters
     ----------
     sigma_high_fraction : "sigma high" at this fraction of the metastable limit [-]
+    undersaturated_fraction : "undersaturated" when sigma is below minus this fraction of the
+        metastable limit [-] (not at zero: near equilibrium, late in a batch, the estimate
+        dithers about it, and a solution a few per cent of the zone undersaturated dissolves
+        next to nothing)
     on_delay_s, off_delay_s : delays against chattering, for every alarm [s]
     deadband_fraction : hysteresis as a fraction of each alarm's limit [-] (for the sigma
         alarms, a fraction of the metastable limit)
@@ -61,6 +65,7 @@ class AlarmSettings:
     """
 
     sigma_high_fraction: float = 0.8
+    undersaturated_fraction: float = 0.1
     on_delay_s: float = 30.0
     off_delay_s: float = 60.0
     deadband_fraction: float = 0.05
@@ -76,6 +81,11 @@ class AlarmSettings:
             self,
             (
                 ("sigma_high_fraction", 0.0 < self.sigma_high_fraction < 1.0, fraction),
+                (
+                    "undersaturated_fraction",
+                    0.0 < self.undersaturated_fraction < 1.0,
+                    fraction,
+                ),
                 ("deadband_fraction", 0.0 < self.deadband_fraction < 1.0, fraction),
                 ("drift_limit_fraction", 0.0 < self.drift_limit_fraction < 1.0, fraction),
                 ("on_delay_s", self.on_delay_s >= 0.0, "must be 0 or more"),
@@ -174,11 +184,12 @@ def crystallizer_alarms(settings: AlarmSettings) -> tuple[AlarmDefinition, ...]:
             "undersaturated",
             Priority.MEDIUM,
             direction=Direction.LOW,
-            limit=0.0,
+            limit=-s.undersaturated_fraction,
             deadband=s.deadband_fraction,
             applies_in=growth,
             meaning=(
-                "The solution is estimated undersaturated while crystals should be growing: "
+                "The solution is estimated undersaturated while crystals should be growing "
+                f"(sigma below -{s.undersaturated_fraction:.0%} of the metastable limit): "
                 "the seed, or the product, is dissolving."
             ),
             response=(

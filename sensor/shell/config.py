@@ -283,6 +283,7 @@ class AlarmsConfig:
     """The alarms' limits and timing (``controller.alarm_set``)."""
 
     sigma_high_fraction: float = field(default=0.8, metadata=check(open_fraction))
+    undersaturated_fraction: float = field(default=0.1, metadata=check(open_fraction))
     on_delay_s: float = field(default=30.0, metadata=check(non_negative))
     off_delay_s: float = field(default=60.0, metadata=check(non_negative))
     deadband_fraction: float = field(default=0.05, metadata=check(open_fraction))
@@ -303,6 +304,7 @@ class AlarmsConfig:
         where undersaturation is intended."""
         return AlarmSettings(
             sigma_high_fraction=self.sigma_high_fraction,
+            undersaturated_fraction=self.undersaturated_fraction,
             on_delay_s=self.on_delay_s,
             off_delay_s=self.off_delay_s,
             deadband_fraction=self.deadband_fraction,
