@@ -177,8 +177,10 @@ class GuardDecision:
     write : write ``setpoint_k`` to the DCS now (only when advising)
     setpoint_k : the proposal after the limits [K]; in fallback with ``hold-rate``, the
         setpoint the held rate leads to; NaN when there is none
-    cooling_rate_k_per_s : the rate ``setpoint_k`` implies from the active setpoint [K/s],
-        positive when cooling; NaN when there is no setpoint
+    cooling_rate_k_per_s : the rate ``setpoint_k`` implies [K/s] from the setpoint cooling is
+        counted from (:func:`setpoint_bounds`: the one written at the previous step while the
+        DCS is on its way to it, otherwise the active setpoint), positive when cooling; NaN
+        when there is no setpoint
     fallback : the declared fallback, in fallback mode; otherwise None
     heartbeat : the heartbeat counter to write
     reasons : why nothing is written (standby, fallback), in plain words
@@ -198,12 +200,14 @@ class GuardDecision:
 
 @dataclass(frozen=True)
 class SetpointBounds:
-    """The setpoints that meet every limit at one step: ``low <= setpoint <= high``."""
+    """The setpoints that meet every limit at one step: ``low <= setpoint <= high``; cooling
+    counted from ``reference_k`` (:func:`setpoint_bounds`)."""
 
     low: float
     high: float
     low_by: str
     high_by: str
+    reference_k: float
 
     @property
     def empty(self) -> bool:
@@ -219,14 +223,28 @@ class SetpointBounds:
 
 
 def setpoint_bounds(
-    limits: GuardLimits, phase: str, active_setpoint_k: float, dt_s: float
+    limits: GuardLimits,
+    phase: str,
+    active_setpoint_k: float,
+    dt_s: float,
+    written_k: float | None = None,
 ) -> SetpointBounds:
-    r"""The setpoints allowed ``dt_s`` [s] after the active setpoint [K], in ``phase``.
+    r"""The setpoints allowed ``dt_s`` [s] after the active setpoint :math:`T_a` [K], in
+    ``phase``; cooling is counted from the reference :math:`T_r`:
 
-    .. math:: \max(T_{lo}, T_f, T_a - \min(\Delta_{max}, b_c\,\Delta t)) \le T_{sp}
+    .. math:: \max(T_{lo}, T_f, T_r - \min(\Delta_{max}, b_c\,\Delta t),
+                    T_a - \Delta_{max}) \le T_{sp}
               \le \min(T_{hi}, T_a + \min(\Delta_{max}, b_h\,\Delta t))
 
-    with :math:`b_h = 0` outside the heating phases.
+    with :math:`b_h = 0` outside the heating phases. :math:`T_r` is ``written_k``, the
+    setpoint the guard wrote at its previous step, while the DCS is on its way to it
+    (:math:`T_a - \Delta_{max} \le T_r \le T_a`), and :math:`T_a` otherwise. The DCS's
+    setpoint is read back a transport delay :math:`L` late: counted from :math:`T_a` alone,
+    a setpoint written every :math:`\Delta t` would descend at only
+    :math:`b_c\,\Delta t / L` (a fifth of the allowed rate in the demo, with steps of about
+    1.5 s and a readback some 8 s of plant time late). Counted from what was written, the
+    written setpoints descend at :math:`b_c` at most, and never more than :math:`\Delta_{max}`
+    below what the DCS uses.
     """
     cooling = limits.max_cooling_rate_k_per_s * dt_s
     cool_by = "max cooling rate"
@@ -239,17 +257,21 @@ def setpoint_bounds(
             heating, heat_by = limits.max_step_k, "max step"
     else:
         heating, heat_by = 0.0, "no heating in this phase"
+    reference = active_setpoint_k
+    if written_k is not None and active_setpoint_k - limits.max_step_k <= written_k:
+        reference = min(written_k, active_setpoint_k)
     lo, hi = limits.setpoint_range_k
     low, low_by = max(
         (lo, "setpoint range"),
         (limits.final_temp_k, "final temperature"),
-        (active_setpoint_k - cooling, cool_by),
+        (reference - cooling, cool_by),
+        (active_setpoint_k - limits.max_step_k, "max step"),
         key=lambda pair: pair[0],
     )
     high, high_by = min(
         (hi, "setpoint range"), (active_setpoint_k + heating, heat_by), key=lambda pair: pair[0]
     )
-    return SetpointBounds(low, high, low_by, high_by)
+    return SetpointBounds(low, high, low_by, high_by, reference)
 
 
 class Guard:
@@ -275,6 +297,7 @@ class Guard:
         self._last_beat_s: float | None = None
         self._heartbeat = 0
         self._held_rate_k_per_s = 0.0
+        self._written_k: float | None = None
 
     @property
     def heartbeat(self) -> int:
@@ -287,6 +310,7 @@ class Guard:
             "last_beat_s": put_float(self._last_beat_s),
             "heartbeat": self._heartbeat,
             "held_rate_k_per_s": put_float(self._held_rate_k_per_s),
+            "written_k": put_float(self._written_k),
         }
 
     def restore(self, state: Mapping[str, Any]) -> None:
@@ -295,6 +319,7 @@ class Guard:
         self._last_beat_s = get_float(state["last_beat_s"])
         self._heartbeat = int(state["heartbeat"]) % HEARTBEAT_MODULUS
         self._held_rate_k_per_s = float(get_float(state["held_rate_k_per_s"]))
+        self._written_k = get_float(state.get("written_k"))  # absent in older checkpoints
 
     def _clock(self, time_s: float) -> tuple[float | None, str | None]:
         """Elapsed time to use for the rate limits, or the reason the time is invalid."""
@@ -331,11 +356,13 @@ class Guard:
             reasons: list[str],
             setpoint_k: float = math.nan,
             limited_by: tuple[str, ...] = (),
+            reference_k: float = inputs.active_setpoint_k,
         ) -> GuardDecision:
             rate = math.nan
             if dt_s and math.isfinite(setpoint_k):
-                rate = (inputs.active_setpoint_k - setpoint_k) / dt_s
+                rate = (reference_k - setpoint_k) / dt_s
             write = mode is GuardMode.ADVISING
+            self._written_k = setpoint_k if write and math.isfinite(setpoint_k) else None
             if write and math.isfinite(rate):
                 self._held_rate_k_per_s = rate
             elif mode is not GuardMode.FALLBACK:
@@ -358,7 +385,8 @@ class Guard:
             )
         if dt_s is None or not math.isfinite(inputs.active_setpoint_k):
             return decide(GuardMode.FALLBACK, doubts)
-        bounds = setpoint_bounds(self.limits, inputs.phase, inputs.active_setpoint_k, dt_s)
+        written = self._written_k
+        bounds = setpoint_bounds(self.limits, inputs.phase, inputs.active_setpoint_k, dt_s, written)
         if bounds.empty:
             return decide(
                 GuardMode.FALLBACK if doubts else GuardMode.STANDBY,
@@ -383,4 +411,4 @@ class Guard:
                 setpoint,
                 limited_by,
             )
-        return decide(GuardMode.ADVISING, [], setpoint, limited_by)
+        return decide(GuardMode.ADVISING, [], setpoint, limited_by, bounds.reference_k)
