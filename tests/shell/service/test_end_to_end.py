@@ -14,6 +14,7 @@ import math
 import urllib.request
 from datetime import UTC, datetime
 
+from sensor.shell.service.clock import RESYNC_AFTER_S
 from sensor.shell.service.service import Service, UnitStep
 from sensor.shell.store import ProposalRow, Store, read_batch
 from simulators.settings import read_simulator_settings
@@ -139,7 +140,9 @@ def test_a_batch_through_a_cut_a_restart_and_a_database_outage(backend, demo_sit
             await asyncio.sleep(1.0)
             await served.__aexit__()
             await wait_until(lambda: _lost(steps), DETECT_S + 2, "the stop noticed")
-            await asyncio.sleep(1.0)
+            # down for longer than the clock's resync lag (shorter pauses leave the ticks at
+            # most that far ahead, by design): the ticks must follow the plant back
+            await asyncio.sleep(RESYNC_AFTER_S + 0.5)
             served = await Served(site, sim, upstream, SPEED, published).__aenter__()
             await wait_until(lambda: not _lost(steps), 10.0, "the plant back")
             # its clock waited while the server was down: the service's ticks follow it back
