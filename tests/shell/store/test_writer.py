@@ -141,7 +141,8 @@ class SqliteLock:
         self.connection: sqlite3.Connection | None = None
 
     def begin(self) -> None:
-        self.connection = sqlite3.connect(self.path, isolation_level=None)
+        # begun and ended from any thread (the end-to-end test's asyncio.to_thread workers)
+        self.connection = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False)
         self.connection.execute("BEGIN EXCLUSIVE")
 
     def end(self) -> None:
