@@ -22,6 +22,15 @@ class FakePlant:
         return PlantClock(lambda: self.newest, SPEED, lambda: self.wall, **options)
 
 
+def started(**options: float) -> tuple[FakePlant, PlantClock]:
+    """A plant and its clock, which has read the plant's first value, ``T0``."""
+    plant = FakePlant()
+    clock = plant.clock(**options)
+    plant.newest = T0
+    clock.now_s()
+    return plant, clock
+
+
 def test_no_time_before_the_first_value_then_the_plants_time():
     plant = FakePlant()
     clock = plant.clock()
@@ -31,19 +40,13 @@ def test_no_time_before_the_first_value_then_the_plants_time():
 
 
 def test_it_carries_on_at_speed_through_an_outage():
-    plant = FakePlant()
-    clock = plant.clock()
-    plant.newest = T0
-    clock.now_s()
+    plant, clock = started()
     plant.wall += 10.0  # nothing arrives for 10 s of wall time
     assert clock.now_s() == pytest.approx(T0 + 10.0 * SPEED)
 
 
 def test_a_late_value_does_not_move_it_back_or_hold_it():
-    plant = FakePlant()
-    clock = plant.clock()
-    plant.newest = T0
-    clock.now_s()
+    plant, clock = started()
     plant.wall += 1.0
     plant.newest = T0 + 0.5 * SPEED  # delivered half a wall second late
     assert clock.now_s() == pytest.approx(T0 + SPEED)
@@ -52,19 +55,13 @@ def test_a_late_value_does_not_move_it_back_or_hold_it():
 
 
 def test_a_plant_ahead_moves_it_forward():
-    plant = FakePlant()
-    clock = plant.clock()
-    plant.newest = T0
-    clock.now_s()
+    plant, clock = started()
     plant.newest = T0 + 30.0
     assert clock.now_s() == T0 + 30.0
 
 
 def test_a_plant_that_paused_is_followed_back_and_the_clock_holds_until_it_passes():
-    plant = FakePlant()
-    clock = plant.clock(resync_after_s=2.0)
-    plant.newest = T0
-    clock.now_s()
+    plant, clock = started(resync_after_s=2.0)
     # the plant's server is down for 5 s of wall time and its batch waits where it stood
     plant.wall += 5.0
     held = clock.now_s()
@@ -86,10 +83,7 @@ def test_a_plant_that_paused_is_followed_back_and_the_clock_holds_until_it_passe
 def test_without_the_resync_the_clock_would_run_ahead_of_a_paused_plant():
     """The same pause with a resync longer than it: the clock stays ahead (what the resync is
     for)."""
-    plant = FakePlant()
-    clock = plant.clock(resync_after_s=60.0)
-    plant.newest = T0
-    clock.now_s()
+    plant, clock = started(resync_after_s=60.0)
     plant.wall += 5.0
     clock.now_s()
     plant.wall += 1.0
