@@ -10,7 +10,7 @@ import pytest
 
 from sensor.shell.cli import main
 from sensor.shell.config import load_site_file
-from sensor.shell.demo_command import with_changes
+from sensor.shell.demo_command import HICCUP_WALL_S, demo_site, with_changes
 from sensor.shell.run_command import ServiceStartError, configure_logging, with_live_port
 from sensor.shell.service.service import Service
 from sensor.shell.store import Store, StoreError
@@ -36,6 +36,17 @@ def test_a_checkpoint_interval_shorter_than_the_tick_is_refused(tmp_path, capsys
     bad.write_text(text)
     assert main(["run", "--config", str(bad)]) == 2
     assert "must be at least tick_s" in capsys.readouterr().err
+
+
+def test_the_demo_bridges_a_pause_of_a_busy_machine_at_any_speed(tmp_path):
+    site = load_site_file(DEMO_SITE)
+    assert site.validation.stale_after_s == 120.0
+    fast = demo_site(site, tmp_path, 200.0)
+    assert fast.validation.stale_after_s == HICCUP_WALL_S * 200.0 > 120.0
+    assert fast.validation.frozen_after_s == site.validation.frozen_after_s
+    assert demo_site(site, tmp_path, 20.0).validation.stale_after_s == 120.0  # 6 s of wall time
+    assert fast.path == site.path
+    assert fast.sha256 == site.sha256
 
 
 def test_demo_refuses_a_speed_it_cannot_keep(capsys):
