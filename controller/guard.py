@@ -336,6 +336,11 @@ class Guard:
         elapsed = self.limits.interval_s if last is None else time_s - last
         return min(elapsed, self.limits.interval_s), None
 
+    @property
+    def written_k(self) -> float | None:
+        """The setpoint written at the last step [K]; None when that step wrote nothing."""
+        return self._written_k
+
     def step(self, inputs: GuardInputs, proposed_setpoint_k: float) -> GuardDecision:
         """Judge one proposal.
 

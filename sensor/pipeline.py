@@ -300,9 +300,10 @@ class Advisor:
             # A very uncertain estimate can send a sigma point of the forecast off to
             # overflow: the forecast is then inf or NaN, which the law treats as no room
             # (hold) or no forecast (no proposal); numpy need not warn about it.
+            start_k = self._law_start_k(setpoint_k, t)
             with np.errstate(over="ignore", invalid="ignore"):
                 self._proposal = self.law.propose(
-                    LawInputs(t, view.phase, temp_k, setpoint_k, view.conc, predictor())
+                    LawInputs(t, view.phase, temp_k, start_k, view.conc, predictor())
                 )
             self._next_law_s = t + self.setup.law.interval_s
             proposed = True
@@ -354,6 +355,25 @@ class Advisor:
             communication_lost=dcs.communication_lost,
             alarm_readings=readings,
         )
+
+    def _law_start_k(self, active_k: float, time_s: float) -> float:
+        """The setpoint [K] a new proposal counts from: where the previous proposal's ramp has
+        reached by ``time_s``, while the DCS follows it (the guard wrote at its last step, and
+        the ramp lies at most ``max_step_k`` below the DCS's setpoint ``active_k``); otherwise
+        ``active_k``.
+
+        Counted from the DCS's setpoint alone, every update would start again from a setpoint
+        at least one scan behind its own ramp (the DCS uses what was written at the scan
+        before, and reads it back later still): on 10 s scans the ramps fell at two thirds of
+        the law's rate, and the last ones only approached the final temperature geometrically,
+        so the recipe's final hold waited for them."""
+        previous = self._proposal
+        if previous is None or self.guard.written_k is None:
+            return active_k
+        reached = self._ramp_k(previous, time_s)
+        if not (math.isfinite(reached) and reached >= active_k - self.setup.limits.max_step_k):
+            return active_k
+        return min(reached, active_k)
 
     def _ramp_k(self, proposal: Proposal, time_s: float) -> float:
         """The setpoint [K] a proposal asks for at ``time_s``: the law's rate from the update,

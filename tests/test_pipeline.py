@@ -19,10 +19,12 @@ import pytest
 
 from controller.errors import ControllerError
 from controller.guard import GuardMode
+from controller.law import LawMode
 from sensor.pipeline import DcsInputs, EstimateView, PipelineResult, UnitPipeline
 from sensor.shell.opcua.advisor_server import unit_outputs
 from sensor.shell.sitesensor import pipeline_setup
 from sensor.validation import Reason
+from tests.controller.toys import ConstantForecast
 from tests.synthetic import cooling_batch, demo_site_and_zone
 
 CONTROLLED_FROM_S = 1200.0
@@ -151,6 +153,45 @@ def test_the_analyzer_verdict_is_held_between_analyzer_samples(setup):
         events += advisor.step(step_view, DcsInputs(), lambda: None).events
     raised = [e for e in events if e.alarm == "analyzer-bad" and e.kind.value == "raised"]
     assert [e.time_s for e in raised] == [setup.alarms.on_delay_s]
+
+
+def test_ramps_continue_across_law_updates_with_a_dcs_one_scan_behind(setup):
+    """A DCS uses the setpoint written at its previous scan (10 s scans; the law every 30 s).
+    Far below its target the law asks for the maximum rate: the written setpoints must fall at
+    that rate across the law's updates, not start again from the DCS's setpoint at each (which
+    wrote the same setpoint twice per update and fell at two thirds of the rate)."""
+    advisor = UnitPipeline(setup).advisor
+    temp_k = 320.0
+    c_sat = float(setup.sensor.zone.solubility.c_sat(np.array(temp_k)))
+    view = EstimateView(
+        time_s=0.0,
+        phase="controlled-cooling",
+        started=True,
+        temp_k=temp_k,
+        conc=c_sat,
+        sigma=0.0,
+        sigma_limit=0.1,
+        analyzer_bias=0.0,
+        extrapolated=False,
+        data_stale=False,
+        conc_stale=False,
+        conc_reason=Reason.ACCEPTED,
+        nis_high=False,
+    )
+    active_k, written, modes = temp_k, [], set()
+    for k in range(13):  # four law updates, 2 K at 1 K/min: still far above T_dd
+        result = advisor.step(
+            replace(view, time_s=10.0 * k),
+            DcsInputs(permissive=True, active_setpoint_k=active_k),
+            lambda: ConstantForecast(0.0),
+        )
+        assert result.decision.write
+        written.append(result.decision.setpoint_k)
+        active_k = result.decision.setpoint_k
+        modes.add(result.proposal.mode)
+    assert modes == {LawMode.AT_MAX_RATE}
+    rate = setup.limits.max_cooling_rate_k_per_s
+    np.testing.assert_allclose(np.diff(written), -rate * 10.0, rtol=1e-9)
 
 
 @pytest.mark.parametrize("stop_at_s", [900.0, 2017.0])
