@@ -25,9 +25,15 @@ batch, in three moves.
    the law then holds, and the growing crystals consume the excess. It never heats to get
    there.
 
-3. **Chance-constrained check.** For a small set of constant cooling rates
-   :math:`b_j \in [0, b_{max}]` the model's predictor forecasts sigma along the ramp
-   :math:`T(t) = \max(T_f, T_0 - b_j t)` over the horizon; a rate passes when
+3. **Chance-constrained check.** For a small set of cooling rates :math:`b_j \in [0, b_{max}]`
+   the model's predictor forecasts sigma over the horizon along the path the batch takes if
+   this proposal is the last one: the ramp :math:`T(t) = \max(T_f, T_0 - b_j \min(t, t_c))`,
+   kept for :math:`t_c` and then held. :math:`t_c` follows from the guard's fallback. With
+   ``recipe`` it is one update interval: at the next update the law proposes again, and a
+   hold is always among its choices; if it steps aside instead, the DCS's recipe (the
+   site's own, validated profile) takes over. With ``hold-rate`` it is the whole horizon: on
+   doubt the guard keeps ramping at the last rate it let through, so that rate must be safe
+   for as long as the forecast looks. A rate passes when
 
    .. math:: \bar\sigma(t) + k\,s_\sigma(t) \le \sigma_{lim}(T(t), \max(b_j, b_{min}))
              \quad \text{for every } t \text{ in the horizon}
@@ -74,7 +80,7 @@ from enum import Enum
 import numpy as np
 
 from controller.errors import ControllerError, check_fields
-from controller.guard import GuardLimits
+from controller.guard import Fallback, GuardLimits
 from controller.protocols import (
     FloatArray,
     MetastableLimit,
@@ -216,21 +222,26 @@ def direct_design_setpoint_k(
 
 
 def ramp_paths_k(
-    start_k: float, floor_k: float, rates_k_per_s: FloatArray, times_s: FloatArray
+    start_k: float,
+    floor_k: float,
+    rates_k_per_s: FloatArray,
+    times_s: FloatArray,
+    ramp_s: float = math.inf,
 ) -> tuple[FloatArray, FloatArray]:
-    """Constant-rate cooling ramps from ``start_k`` [K] that stop at ``floor_k`` [K].
+    """Cooling ramps from ``start_k`` [K], each at a constant rate for ``ramp_s`` [s] and then
+    held, that stop at ``floor_k`` [K].
 
     Returns
     -------
     temps_k : the temperatures [K], shape ``(len(rates), len(times))``; a start below the floor
         stays where it is (no heating)
     point_rates_k_per_s : each point's cooling rate [K/s], same shape: the ramp's rate while it
-        moves, 0 once it has stopped
+        moves (``times_s < ramp_s``, above the floor), 0 once it has stopped
     """
     floor = min(floor_k, start_k)
-    ramp = start_k - np.outer(rates_k_per_s, times_s)
-    moving = ramp > floor
-    return np.where(moving, ramp, floor), np.where(moving, rates_k_per_s[:, None], 0.0)
+    ramp = start_k - np.outer(rates_k_per_s, np.minimum(times_s, ramp_s))
+    moving = (ramp > floor) & (times_s < ramp_s)
+    return np.maximum(ramp, floor), np.where(moving, rates_k_per_s[:, None], 0.0)
 
 
 def forecast_margin(
@@ -317,6 +328,8 @@ class SetpointLaw:
         self._grid = limits.max_cooling_rate_k_per_s * np.linspace(
             0.0, 1.0, settings.rate_candidates + 1
         )
+        self.ramp_s = math.inf if limits.fallback is Fallback.HOLD_RATE else settings.interval_s
+        """How long the check keeps a candidate rate before holding [s] (module docstring)."""
 
     def propose(self, inputs: LawInputs) -> Proposal:
         """The proposal for one update (see the module's description)."""
@@ -455,7 +468,9 @@ class SetpointLaw:
     def _margins(self, inputs: LawInputs, rates: FloatArray) -> FloatArray:
         times = self._times_s
         start = min(inputs.temp_k, inputs.setpoint_k)
-        paths, point_rates = ramp_paths_k(start, self.limits.final_temp_k, rates, times)
+        paths, point_rates = ramp_paths_k(
+            start, self.limits.final_temp_k, rates, times, self.ramp_s
+        )
         return forecast_margin(
             inputs.predictor,
             self.limit,

@@ -18,6 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from controller.errors import ControllerError, SettingsError
+from controller.guard import Fallback
 from controller.law import (
     LawInputs,
     LawMode,
@@ -51,6 +52,9 @@ SETTINGS = LawSettings(
 SOLUBILITY = ToySolubility()
 ZONE = ToyZone()
 TARGET = 0.5 * float(ZONE.sigma_limit(320.0, 0.3 * PER_MIN))
+HOLD_RATE = replace(LIMITS, fallback=Fallback.HOLD_RATE)
+"""With ``hold-rate`` the check's paths are constant ramps over the whole horizon (the guard
+may keep the rate that long): the toy's forecast binds on them."""
 
 
 def _law(settings=SETTINGS, limits=LIMITS, solubility=SOLUBILITY) -> SetpointLaw:
@@ -144,9 +148,32 @@ def test_ramps_stop_at_the_floor_and_are_judged_there_at_the_slowest_zone_rate()
     np.testing.assert_allclose(margin, [at_min - 0.02, at_min - 0.02], rtol=1e-12)
 
 
+def test_ramps_kept_for_a_while_then_held():
+    times = np.array([30.0, 60.0, 90.0])
+    rates = np.array([0.0, 1.0 / 60.0])
+    paths, point_rates = ramp_paths_k(300.0, 283.15, rates, times, ramp_s=60.0)
+    np.testing.assert_allclose(paths, [[300.0] * 3, [299.5, 299.0, 299.0]], atol=1e-12)
+    np.testing.assert_array_equal(point_rates, [[0.0] * 3, [1.0 / 60.0, 0.0, 0.0]])
+
+
+def test_with_the_recipe_fallback_the_check_keeps_a_rate_one_interval_then_holds():
+    # The law proposes again at the next update, a hold among its choices: only the next
+    # interval is committed. The same toy binds a rate kept over the whole horizon.
+    assert _law().ramp_s == SETTINGS.interval_s
+    assert _law(limits=HOLD_RATE).ramp_s == math.inf
+    toy = _toy()
+    committed = _law().propose(_inputs(toy, sigma=toy.sigma))
+    toy = _toy()
+    kept = _law(limits=HOLD_RATE).propose(_inputs(toy, sigma=toy.sigma))
+    assert kept.mode is LawMode.LIMITED_BY_FORECAST
+    assert committed.mode is LawMode.AT_MAX_RATE
+    assert committed.cooling_rate_k_per_s > kept.cooling_rate_k_per_s
+    assert committed.forecast_margin >= 0.0
+
+
 def test_the_chosen_rate_passes_and_a_faster_one_fails():
     toy = _toy()
-    law = _law()
+    law = _law(limits=HOLD_RATE)
     proposal = law.propose(_inputs(toy, sigma=toy.sigma))
     assert proposal.mode is LawMode.LIMITED_BY_FORECAST
     assert proposal.forecast_margin >= 0.0
@@ -169,14 +196,14 @@ def test_the_chosen_rate_passes_and_a_faster_one_fails():
 
 def test_a_wider_confidence_band_means_gentler_cooling():
     rates = [
-        _law().propose(_inputs(toy, sigma=toy.sigma)).cooling_rate_k_per_s
+        _law(limits=HOLD_RATE).propose(_inputs(toy, sigma=toy.sigma)).cooling_rate_k_per_s
         for toy in (_toy(growth_rel_std=d) for d in (0.0, 0.3, 0.9))
     ]
     assert rates[0] > rates[1] > rates[2] > 0.0
     # and so does a larger k, for the same band
-    strict = replace(SETTINGS, confidence_k=4.0)
+    strict = _law(replace(SETTINGS, confidence_k=4.0), limits=HOLD_RATE)
     toy = _toy(growth_rel_std=0.3)
-    assert _law(strict).propose(_inputs(toy, sigma=toy.sigma)).cooling_rate_k_per_s < rates[1]
+    assert strict.propose(_inputs(toy, sigma=toy.sigma)).cooling_rate_k_per_s < rates[1]
 
 
 def test_a_lagging_reactor_is_forecast_from_the_lower_setpoint():
@@ -189,7 +216,7 @@ def test_a_lagging_reactor_is_forecast_from_the_lower_setpoint():
             paths.append(np.array(temp_path_k))
             return super().predict_sigma(times_s, temp_path_k)
 
-    _law().propose(_inputs(Recorder(0.0), temp_k=320.0, setpoint_k=319.0))
+    _law(limits=HOLD_RATE).propose(_inputs(Recorder(0.0), temp_k=320.0, setpoint_k=319.0))
     first = paths[0]
     assert first[0, 0] == 319.0  # the hold path
     assert np.all(first <= 319.0)
