@@ -13,9 +13,12 @@ to the final temperature. Checks from issue 5:
 3. it takes at most 1.15 times the batch time of an oracle tracking the same sigma target
    with the plant's true concentration and solubility.
 
-Checks 2 and 3 are not met by every batch (known and reported: the median ratios are met for
-check 2, not for check 3; ``tests/benchmarks/closed_loop.py`` prints them per batch). They are
-marked as expected failures, strictly: the day they pass, the marks must go.
+Check 3 is not met (known and reported; ``tests/benchmarks/closed_loop.py`` prints the ratios
+per batch): the advisor takes 1.2 to 1.9 times the oracle's time, the most where the plant's
+solubility lies above the site's curve (the solubility offset the analyzer cannot see: the
+advisor reads sigma higher than it is) and where its band, about +/-0.017 in sigma at k = 2 from
+the analyzer's bias, keeps the forecast under the limit. It is marked as an expected failure,
+strictly: the day it passes, the mark must go.
 """
 
 from __future__ import annotations
@@ -44,18 +47,12 @@ def test_true_sigma_never_reaches_the_metastable_limit(comparisons):
     assert all(np.isfinite(c.advisor.seeding_to_final_s) for c in comparisons)
 
 
-def test_most_batches_are_30_percent_shorter_than_a_linear_ramp(comparisons):
-    ratios = np.array([c.linear_ratio for c in comparisons])
-    assert np.median(ratios) <= 0.7, ratios
-
-
-@pytest.mark.xfail(strict=True, reason="known miss: some batches are < 30 % shorter")
 def test_every_batch_is_30_percent_shorter_than_a_linear_ramp(comparisons):
     ratios = np.array([c.linear_ratio for c in comparisons])
     assert np.all(ratios <= 0.7), ratios
 
 
-@pytest.mark.xfail(strict=True, reason="known miss: 1.25x to 2x the oracle's batch time")
+@pytest.mark.xfail(strict=True, reason="known miss: 1.2x to 1.9x the oracle's batch time")
 def test_every_batch_within_15_percent_of_the_oracle(comparisons):
     ratios = np.array([c.oracle_ratio for c in comparisons])
     assert np.all(ratios <= 1.15), ratios
