@@ -80,7 +80,7 @@ class UnitSetup:
     estimating_phases: frozenset[str] | None = None
     all_phases: frozenset[str] = frozenset()
     nis_window: int = 30
-    nis_probability: float = 0.95
+    nis_probability: float = 0.999
 
 
 @dataclass(frozen=True)

@@ -162,7 +162,7 @@ class FilterConfig:
     gate_probability: float = field(default=0.999, metadata=check(open_fraction))
     max_consecutive_gated: int = field(default=5, metadata=check(at_least(1)))
     nis_window: int = field(default=30, metadata=check(at_least(2)))
-    nis_probability: float = field(default=0.95, metadata=check(open_fraction))
+    nis_probability: float = field(default=0.999, metadata=check(open_fraction))
     temp_process_std_k_per_sqrt_s: float = field(default=2e-3, metadata=check(positive))
     conc_process_std_per_sqrt_s: float = field(default=2e-6, metadata=check(positive))
     moment_process_std_per_sqrt_s: float = field(default=1e-8, metadata=check(positive))
