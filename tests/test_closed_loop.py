@@ -16,8 +16,8 @@ to the final temperature. Checks from issue 5:
 Check 3 is not met (known and reported; ``tests/benchmarks/closed_loop.py`` prints the ratios
 per batch): the advisor takes 1.17 to 1.82 times the oracle's time, the most where the plant's
 solubility lies above the site's curve (the solubility offset the analyzer cannot see: the
-advisor reads sigma higher than it is) and where its band, about +/-0.017 in sigma at k = 2 from
-the analyzer's bias, keeps the forecast under the limit. It is marked as an expected failure,
+advisor reads sigma higher than it is) and where its standard deviation of sigma, about 0.017
+(most of it the analyzer's bias), twice of which (k = 2) it keeps under the limit, binds. It is marked as an expected failure,
 strictly: the day it passes, the mark must go.
 """
 
