@@ -17,8 +17,8 @@ Check 3 is not met (known and reported; ``tests/benchmarks/closed_loop.py`` prin
 per batch): the advisor takes 1.17 to 1.82 times the oracle's time, the most where the plant's
 solubility lies above the site's curve (the solubility offset the analyzer cannot see: the
 advisor reads sigma higher than it is) and where its standard deviation of sigma, about 0.017
-(most of it the analyzer's bias), twice of which (k = 2) it keeps under the limit, binds. It is marked as an expected failure,
-strictly: the day it passes, the mark must go.
+(most of it the analyzer's bias), twice of which (k = 2) it keeps under the limit, binds. It
+is marked as an expected failure, strictly: the day it passes, the mark must go.
 """
 
 from __future__ import annotations

@@ -47,6 +47,22 @@ def samples(setup):
 
 
 DCS = DcsInputs(permissive=True)
+VIEW = EstimateView(
+    time_s=0.0,
+    phase="controlled-cooling",
+    started=True,
+    temp_k=320.0,
+    conc=0.1,
+    sigma=0.02,
+    sigma_limit=0.1,
+    analyzer_bias=0.0,
+    extrapolated=False,
+    data_stale=False,
+    conc_stale=False,
+    conc_reason=Reason.ACCEPTED,
+    nis_high=False,
+)
+"""A soft-sensor view in controlled cooling, for the advisor's tests alone."""
 
 
 def _same(a: PipelineResult, b: PipelineResult) -> None:
@@ -131,20 +147,9 @@ def test_operator_actions_reach_the_alarm_engine(setup, samples):
 def test_the_analyzer_verdict_is_held_between_analyzer_samples(setup):
     pipeline = UnitPipeline(setup)
     advisor = pipeline.advisor
-    view = EstimateView(
-        time_s=0.0,
-        phase="controlled-cooling",
-        started=False,
-        temp_k=math.nan,
-        conc=math.nan,
-        sigma=math.nan,
-        sigma_limit=math.nan,
-        analyzer_bias=math.nan,
-        extrapolated=False,
-        data_stale=False,
-        conc_stale=False,
-        conc_reason=Reason.BAD_QUALITY,
-        nis_high=False,
+    nan = math.nan
+    view = replace(
+        VIEW, started=False, temp_k=nan, conc=nan, sigma=nan, sigma_limit=nan, analyzer_bias=nan
     )
     events = []
     for k in range(100):
@@ -163,21 +168,7 @@ def test_ramps_continue_across_law_updates_with_a_dcs_one_scan_behind(setup):
     advisor = UnitPipeline(setup).advisor
     temp_k = 320.0
     c_sat = float(setup.sensor.zone.solubility.c_sat(np.array(temp_k)))
-    view = EstimateView(
-        time_s=0.0,
-        phase="controlled-cooling",
-        started=True,
-        temp_k=temp_k,
-        conc=c_sat,
-        sigma=0.0,
-        sigma_limit=0.1,
-        analyzer_bias=0.0,
-        extrapolated=False,
-        data_stale=False,
-        conc_stale=False,
-        conc_reason=Reason.ACCEPTED,
-        nis_high=False,
-    )
+    view = replace(VIEW, temp_k=temp_k, conc=c_sat, sigma=0.0)
     active_k, written, modes = temp_k, [], set()
     for k in range(13):  # four law updates, 2 K at 1 K/min: still far above T_dd
         result = advisor.step(
