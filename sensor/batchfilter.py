@@ -706,10 +706,13 @@ SEVERITY_CODES = (GOOD, 0x40000000, 0x80000000)
 """A StatusCode of each severity (``Good``, ``Uncertain``, ``Bad``)."""
 
 
-def run_per_sample(setup: UnitSetup, batch: BatchArrays) -> KernelOutput | SigmatrackError:
+def run_per_sample(
+    setup: UnitSetup, batch: BatchArrays, *, reference_filter: bool = False
+) -> KernelOutput | SigmatrackError:
     """What :func:`run_batches` records, from :class:`SoftSensor` on filterpy (the reference
-    path, and the one an EKF site replays through)."""
-    sensor = SoftSensor(setup)
+    path, and the one an EKF site replays through); ``reference_filter``: on the unmodified
+    filterpy UKF (:class:`SoftSensor`)."""
+    sensor = SoftSensor(setup, reference_filter=reference_filter)
     n = setup.model.layout.size
     out = KernelOutput.empty(len(batch.time_s), n)
     outside = sorted(setup.all_phases - (setup.estimating_phases or setup.all_phases))

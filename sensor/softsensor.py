@@ -178,11 +178,12 @@ class _Signal:
 class SoftSensor:
     """The soft sensor of one unit (module docstring). Not thread-safe: one caller steps it."""
 
-    def __init__(self, setup: UnitSetup) -> None:
+    def __init__(self, setup: UnitSetup, *, reference_filter: bool = False) -> None:
         self.setup = setup
-        self.filter = CrystallizerFilter(
-            setup.model, setup.tuning, setup.measurements, setup.seed_zeta
-        )
+        self.reference_filter = reference_filter
+        """Run the unmodified filterpy UKF (``CrystallizerFilter(reference=True)``): the same
+        numbers, slower; for the checks and benchmarks against filterpy itself."""
+        self.filter = self._new_filter()
         self._temp = _Signal(setup.temp_rules)
         self._jacket = _Signal(setup.jacket_rules)
         self._conc = _Signal(setup.conc_rules)
@@ -317,11 +318,19 @@ class SoftSensor:
         """Stop the filter (the phase left the model's validity, or a gap in the samples);
         validation state stays."""
         setup = self.setup
-        self.filter = CrystallizerFilter(
-            setup.model, setup.tuning, setup.measurements, setup.seed_zeta
-        )
+        self.filter = self._new_filter()
         self._nis = NisWindow(setup.nis_window, setup.nis_probability)
         self._seeded = False
+
+    def _new_filter(self) -> CrystallizerFilter:
+        setup = self.setup
+        return CrystallizerFilter(
+            setup.model,
+            setup.tuning,
+            setup.measurements,
+            setup.seed_zeta,
+            reference=self.reference_filter,
+        )
 
     def _analyzer(self, t: float) -> tuple[Reason, float, bool]:
         info: UpdateInfo | None = self.filter.analyzer(t, self._conc.value)

@@ -61,6 +61,23 @@ def test_kernel_agrees_with_filterpy_path(case, rng):
         assert started.mean() > 0.9
 
 
+def test_kernel_agrees_with_the_unmodified_filterpy_ukf(rng):
+    """The per-sample path above runs filterpy's UKF with its per-sigma-point work compiled
+    (``CrystallizerUKF``, checked against the unmodified one in ``tests/test_kalman_fast.py``);
+    here the kernel is checked against ``filterpy.kalman.UnscentedKalmanFilter`` itself, with
+    a gap that restarts the filter, on a faulty batch with the analyzer delayed 30 s."""
+    setup = demo_setup()
+    batch = cooling_batch(setup, rng, hours=0.5, bias=0.002, seed_at_s=600.0)
+    samples = with_faults(batch.samples, rng)
+    stale = setup.temp_rules.stale_after_s
+    gap_end = next(k for k, s in enumerate(samples) if s.time_s > samples[900].time_s + 2 * stale)
+    arrays = BatchArrays.from_samples(samples[:900] + samples[gap_end:], setup)
+    (kernel,) = run_batches(setup, [arrays])
+    started = _assert_agree(kernel, run_per_sample(setup, arrays, reference_filter=True))
+    assert started.mean() > 0.8
+    assert not started[900]  # the restart: the next accepted analyzer value starts it again
+
+
 def _assert_agree(kernel, reference) -> np.ndarray:
     """The kernel's output equals the filterpy path's; returns where the filter ran."""
     assert not isinstance(kernel, Exception)

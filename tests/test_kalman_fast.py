@@ -108,10 +108,7 @@ def test_a_batch_steps_as_with_the_unmodified_filterpy_ukf(rng):
     setup = demo_setup()
     batch = cooling_batch(setup, rng, hours=0.6, start_temp_c=51.0, bias=0.002, seed_at_s=600.0)
     samples = with_faults(batch.samples, rng)
-    fast, plain = SoftSensor(setup), SoftSensor(setup)
-    plain.filter = CrystallizerFilter(
-        setup.model, setup.tuning, setup.measurements, setup.seed_zeta, reference=True
-    )
+    fast, plain = SoftSensor(setup), SoftSensor(setup, reference_filter=True)
     assert type(fast.filter._ukf) is CrystallizerUKF
     assert type(plain.filter._ukf) is UnscentedKalmanFilter
     worst = [0.0, 0.0]

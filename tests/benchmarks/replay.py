@@ -9,9 +9,12 @@ the estimation model, each copy with its own measurement noise), then measures i
 
 - the replay kernel (validation + UKF with delay re-filtering) on all of them, in chunks;
 - the outputs (:func:`sensor.outputs.estimates`) of all of them;
-- the per-sample path (``SoftSensor`` on filterpy's ``UnscentedKalmanFilter``, what the live
-  service runs) on ``--loop-batches`` of them, and the largest difference of any state between the
-  two paths on those (target: at most 1e-9).
+- the per-sample filterpy path (``SoftSensor`` on the unmodified
+  ``filterpy.kalman.UnscentedKalmanFilter``, every sigma point through ``fx`` one by one:
+  ``run_per_sample(..., reference_filter=True)``) on ``--loop-batches`` of them, and the largest
+  difference of any state between the two paths on those (target: at most 1e-9). The live
+  service runs the same filter with its per-sigma-point work compiled
+  (``CrystallizerUKF``); its rate on the same batches is printed beside it, for scale.
 
 It prints samples per second of each, the ratio ``NNx`` of the kernel's and of the whole engine's
 (kernel + outputs) against the per-sample path (target: at least 100x for the engine), and where
@@ -92,7 +95,7 @@ def _time_calls(s, n, reps):
         w.x[:] = x0
         w.P[:, :] = p0
         _predict(1.0, 315.0, s, w)
-        _update(320.0, 0, s.r_temp, s, w)
+        _update(320.0, s.h_temp, s.r_temp, w)
         t += w.x[0]
     return t
 
@@ -129,8 +132,12 @@ def main() -> int:
     loop = batches[: args.loop_batches]
     loop_samples = sum(len(b.time_s) for b in loop)
     start = time.process_time()
-    reference = [run_per_sample(setup, b) for b in loop]
+    reference = [run_per_sample(setup, b, reference_filter=True) for b in loop]
     loop_s = time.process_time() - start
+    start = time.process_time()
+    for b in loop:
+        run_per_sample(setup, b)
+    live_s = time.process_time() - start
     fused = run_batches(setup, loop, 1)
     worst = 0.0
     for ref, out in zip(reference, fused, strict=True):
@@ -146,6 +153,10 @@ def main() -> int:
     print(f"outputs: {outputs_s:.1f} s, {samples / outputs_s:,.0f} samples/s")
     print(
         f"per-sample filterpy path: {loop_s:.1f} s for {loop_samples:,}, {loop_rate:,.0f} samples/s"
+    )
+    print(
+        f"per-sample path with the live service's compiled UKF: {loop_samples / live_s:,.0f} "
+        f"samples/s (the engine {engine_rate * live_s / loop_samples:.0f}x that)"
     )
     print(f"kernel vs per-sample path: {kernel_rate / loop_rate:.0f}x")
     print(f"replay engine (kernel + outputs) vs per-sample path: {engine_rate / loop_rate:.0f}x "
