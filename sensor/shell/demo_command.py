@@ -23,6 +23,7 @@ import argparse
 import asyncio
 import contextlib
 import dataclasses
+import logging
 import socket
 import subprocess
 import sys
@@ -32,6 +33,7 @@ from typing import TextIO
 import sensor
 from sensor.errors import SigmatrackError
 from sensor.shell.config import SiteConfig, load_site_file
+from sensor.shell.opcua import plant_client
 from sensor.shell.run_command import configure_logging, serve, with_live_port
 from sensor.shell.service.console import ConsoleView
 from sensor.shell.service.service import ServiceStatus, UnitStep
@@ -155,17 +157,25 @@ def demo_site(site: SiteConfig, out: Path, speed: float) -> SiteConfig:
 @dataclasses.dataclass
 class BatchWatch:
     """Stops the demo when the batch is over: the plant reached its last phase and then
-    stopped serving (or the plant process ended)."""
+    stopped serving (or the plant process ended).
+
+    From the last phase on, the plant client's log (``link_log``) is held to errors: the plant
+    process stops serving at the end of its batch, and the lost link that follows is the end
+    of the demo, not a fault to warn a new user about (``_run`` gives the level back)."""
 
     stop: asyncio.Event
     last_phase_seen: bool = False
     batch_id: str | None = None
+    link_log: logging.Logger = dataclasses.field(
+        default_factory=lambda: logging.getLogger(plant_client.__name__)
+    )
 
     def __call__(self, step: UnitStep) -> None:
         if step.batch_id is not None:
             self.batch_id = step.batch_id
-        if step.snapshot.sample.phase == LAST_PHASE:
+        if step.snapshot.sample.phase == LAST_PHASE and not self.last_phase_seen:
             self.last_phase_seen = True
+            self.link_log.setLevel(logging.ERROR)
         if self.last_phase_seen and step.snapshot.communication_lost:
             self.stop.set()
 
@@ -248,6 +258,7 @@ async def _run(
             ready=start_plant,
         )
     finally:
+        watch.link_log.setLevel(logging.NOTSET)
         for plant in started:
             if plant.returncode is None:
                 plant.terminate()

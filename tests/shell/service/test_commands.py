@@ -4,13 +4,15 @@ reason not to start, another schema version is; the log leaves lost-link traceba
 
 from __future__ import annotations
 
+import asyncio
 import logging
+from types import SimpleNamespace
 
 import pytest
 
 from sensor.shell.cli import main
 from sensor.shell.config import load_site_file
-from sensor.shell.demo_command import HICCUP_WALL_S, demo_site, with_changes
+from sensor.shell.demo_command import HICCUP_WALL_S, BatchWatch, demo_site, with_changes
 from sensor.shell.run_command import ServiceStartError, configure_logging, with_live_port
 from sensor.shell.service.service import Service
 from sensor.shell.store import Store, StoreError
@@ -47,6 +49,31 @@ def test_the_demo_bridges_a_pause_of_a_busy_machine_at_any_speed(tmp_path):
     assert demo_site(site, tmp_path, 20.0).validation.stale_after_s == 120.0  # 6 s of wall time
     assert fast.path == site.path
     assert fast.sha256 == site.sha256
+
+
+def test_the_demo_ends_after_its_last_phase_without_warning_of_the_lost_link(caplog):
+    def step(phase: str, lost: bool = False) -> SimpleNamespace:
+        sample = SimpleNamespace(phase=phase)
+        return SimpleNamespace(
+            batch_id="B1", snapshot=SimpleNamespace(sample=sample, communication_lost=lost)
+        )
+
+    link = logging.getLogger("sensor.shell.opcua.plant_client")
+    watch = BatchWatch(asyncio.Event())
+    assert watch.link_log is link
+    try:
+        watch(step("controlled-cooling", lost=True))  # a lost link mid-batch: warned, no stop
+        assert not watch.stop.is_set()
+        assert link.getEffectiveLevel() <= logging.WARNING
+        watch(step("discharge"))
+        with caplog.at_level(logging.WARNING):
+            link.warning("plant link lost")
+        assert "plant link lost" not in caplog.text
+        watch(step("discharge", lost=True))
+        assert watch.stop.is_set()
+        assert watch.batch_id == "B1"
+    finally:
+        link.setLevel(logging.NOTSET)
 
 
 def test_demo_refuses_a_speed_it_cannot_keep(capsys):
