@@ -222,6 +222,17 @@ class SetpointBounds:
         return setpoint_k, ()
 
 
+def followed_setpoint_k(
+    limits: GuardLimits, active_setpoint_k: float, toward_k: float | None
+) -> float:
+    r"""Where the DCS's setpoint is heading [K]: ``toward_k`` while the DCS is on its way down
+    to it (:math:`T_a - \Delta_{max} \le` ``toward_k`` :math:`\le T_a`; above :math:`T_a`,
+    :math:`T_a`), otherwise the DCS's setpoint :math:`T_a` itself (None or NaN included)."""
+    if toward_k is not None and active_setpoint_k - limits.max_step_k <= toward_k:
+        return min(toward_k, active_setpoint_k)
+    return active_setpoint_k
+
+
 def setpoint_bounds(
     limits: GuardLimits,
     phase: str,
@@ -257,9 +268,7 @@ def setpoint_bounds(
             heating, heat_by = limits.max_step_k, "max step"
     else:
         heating, heat_by = 0.0, "no heating in this phase"
-    reference = active_setpoint_k
-    if written_k is not None and active_setpoint_k - limits.max_step_k <= written_k:
-        reference = min(written_k, active_setpoint_k)
+    reference = followed_setpoint_k(limits, active_setpoint_k, written_k)
     lo, hi = limits.setpoint_range_k
     low, low_by = max(
         (lo, "setpoint range"),

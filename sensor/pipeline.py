@@ -70,7 +70,13 @@ from controller.alarm_set import AlarmInputs, AlarmSettings, alarm_readings, cry
 from controller.alarms import AlarmEngine, AlarmEvent, AlarmStatus
 from controller.checkpoint import get_float, put_float
 from controller.errors import ControllerError
-from controller.guard import Guard, GuardDecision, GuardInputs, GuardLimits
+from controller.guard import (
+    Guard,
+    GuardDecision,
+    GuardInputs,
+    GuardLimits,
+    followed_setpoint_k,
+)
 from controller.law import LawInputs, LawMode, LawSettings, Proposal, SetpointLaw
 from controller.protocols import SigmaPredictor
 from sensor.predictor import SigmaPredictor as ModelPredictor
@@ -367,13 +373,10 @@ class Advisor:
         before, and reads it back later still): on 10 s scans the ramps fell at two thirds of
         the law's rate, and the last ones only approached the final temperature geometrically,
         so the recipe's final hold waited for them."""
-        previous = self._proposal
-        if previous is None or self.guard.written_k is None:
+        if self._proposal is None or self.guard.written_k is None:
             return active_k
-        reached = self._ramp_k(previous, time_s)
-        if not (math.isfinite(reached) and reached >= active_k - self.setup.limits.max_step_k):
-            return active_k
-        return min(reached, active_k)
+        reached = self._ramp_k(self._proposal, time_s)
+        return followed_setpoint_k(self.setup.limits, active_k, reached)
 
     def _ramp_k(self, proposal: Proposal, time_s: float) -> float:
         """The setpoint [K] a proposal asks for at ``time_s``: the law's rate from the update,
